@@ -1,0 +1,14 @@
+"""lanqr: extreme eigenpairs of large sparse symmetric operators.
+
+Lanczos with thick restart, solved at every step by a compiled implicit-shift
+QR kernel for symmetric tridiagonal matrices.
+"""
+from lanqr._version import __version__
+from lanqr.tridiagonal import tridiag_eigen, tridiag_values, TridiagonalConvergenceError
+
+__all__ = [
+    "__version__",
+    "tridiag_eigen",
+    "tridiag_values",
+    "TridiagonalConvergenceError",
+]

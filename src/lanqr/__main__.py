@@ -1,0 +1,3 @@
+from lanqr.cli import main
+
+raise SystemExit(main())
