@@ -85,12 +85,13 @@ def _solve(A, k, selector, tol, basis, max_restarts, seed, start, callback):
         method = "dense (scipy.linalg.eigh)"
         restarts, history = 0, []
         vecs = np.asfortranarray(vecs)
+        products = op.apply_block(vecs)
     else:
         basis = min(basis, n - 1)
         out = thick_restart_lanczos(op.apply, space, n, k, selector, tol=tol, basis=basis,
                                     max_restarts=max_restarts, rng=rng, start=start,
-                                    callback=callback)
-        vals, vecs = out["values"], out["vectors"]
+                                    callback=callback, apply_block=op.apply_block)
+        vals, vecs, products = out["values"], out["vectors"], out["products"]
         anorm = out["norm_estimate"]
         method = f"thick-restart Lanczos (basis {basis})"
         restarts, history = out["restarts"], out["history"]
@@ -101,7 +102,7 @@ def _solve(A, k, selector, tol, basis, max_restarts, seed, start, callback):
     # at the rounding level of one product (see lowest(), Notes).
     anorm = max(anorm, float(np.max(np.abs(vals))))
     floor = FLOOR_FACTOR * _EPS * anorm / tol
-    R = op.apply_block(vecs) - vecs * vals
+    R = products - vecs * vals
     rnorm = space.column_norms(R)
     residuals = rnorm / np.maximum(np.abs(vals), floor) if floor > 0 else \
         np.where(rnorm == 0, 0.0, np.inf)

@@ -99,7 +99,8 @@ def _arrow_to_tridiagonal(theta, s):
 
 
 def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_restarts, rng,
-                          start=None, callback=None, keep_extra=None, verify=True):
+                          start=None, callback=None, keep_extra=None, verify=True,
+                          apply_block=None):
     """Thick-restart Lanczos for the ``k`` wanted eigenpairs of a symmetric operator.
 
     Parameters
@@ -128,12 +129,16 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
         Unconverged Ritz vectors kept beyond the wanted ones at a restart.
     verify : bool
         Run the repeated-eigenvalue verification round.
+    apply_block : callable or None
+        ``apply_block(X)`` applies the operator to the columns of ``X`` (for
+        the final Rayleigh-Ritz step); by default ``apply`` column by column.
 
     Returns
     -------
     dict
         ``values``, ``vectors`` (the best ``k`` in wanted order), ``estimates``,
         ``converged``, ``restarts``, ``history``, ``norm_estimate``,
+        ``products`` (the operator applied to ``vectors``),
         ``verification`` (statistics of the verification round).
     """
     if selector not in SELECTORS:
@@ -313,10 +318,33 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
             callback({"restart": restarts, "phase": state["phase"], "locked": L,
                       "ritz": last_theta.copy(), "estimates": last_est.copy()})
 
+    # Final Rayleigh-Ritz step on every locked and returned vector.  Locking
+    # drops couplings of tolerance size between the locked vectors and the
+    # active basis; pairs of a cluster locked at different restarts therefore
+    # carry small components of each other.  One projection onto their span
+    # removes them, so each residual is the part orthogonal to all of them.
+    K = final_vecs.shape[1]
+    if apply_block is None:
+        AX = np.empty_like(final_vecs)
+        for i in range(K):
+            AX[:, i] = apply(final_vecs[:, i])
+    else:
+        AX = np.asarray(apply_block(final_vecs), dtype=np.float64)
+    G = space.gram(final_vecs, AX)
+    G = 0.5 * (G + G.T)
+    vals_rr, U = scipy.linalg.eigh(G)
+    # Keep each pair's convergence flag with the Ritz vector it mixes into most.
+    owner = np.argmax(np.abs(U), axis=0)
+    final_conv = final_conv[owner]
+    final_est = final_est[owner]
+    final_vals = vals_rr
+    final_vecs = final_vecs @ U
+    AX = AX @ U
     pick = np.argsort(wanted_key(final_vals, selector), kind="stable")[:k]
     return {
         "values": final_vals[pick],
         "vectors": np.asfortranarray(final_vecs[:, pick]),
+        "products": np.asfortranarray(AX[:, pick]),
         "estimates": final_est[pick],
         "converged": final_conv[pick],
         "restarts": restarts,
