@@ -213,6 +213,12 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
         nv = space.norm(v)
     Q[:, 0] = v / nv
 
+    applied = [0]  # operator applications by this solve (history, callback)
+
+    def counted_apply(x):
+        applied[0] += 1
+        return apply(x)
+
     state = {"anorm": 0.0, "phase": "main", "round_found": False, "certified": False}
     history = []
     restarts = 0
@@ -257,7 +263,7 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
     while True:
         state["certified"] = False
         offset = L
-        steps = extend_basis(apply, space, Q, offset, first, m - L, alpha, beta, rng,
+        steps = extend_basis(counted_apply, space, Q, offset, first, m - L, alpha, beta, rng,
                              norm_estimate=state["anorm"], after_step=after_step)
         if state["phase"] == "verify":
             verification["steps"] += steps - first
@@ -268,6 +274,7 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
         order = np.argsort(wanted_key(theta, selector), kind="stable")
         thr = threshold(theta)
         history.append({"ritz": theta[order].copy(), "estimates": est[order].copy(),
+                        "matvecs": applied[0],
                         "locked": L, "phase": state["phase"]})
         last_theta, last_est = theta[order], est[order]
 
@@ -363,6 +370,7 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
             first = 0
         if callback is not None:
             callback({"restart": restarts, "phase": state["phase"], "locked": L,
+                      "matvecs": applied[0],
                       "ritz": last_theta.copy(), "estimates": last_est.copy()})
 
     # Final Rayleigh-Ritz step on every locked and returned vector.  Locking
