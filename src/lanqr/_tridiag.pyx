@@ -49,6 +49,10 @@ cdef double SSFMIN = sqrt(SAFMIN) / EPS2
 # two columns is 1 KiB, resident in L1 for the whole sweep.  Chosen by
 # measurement (bench/bench_tridiagonal.py --row-block).
 cdef Py_ssize_t ROW_BLOCK = 64
+# Sweeps whose rotations are stored before they are applied to Z together.
+cdef Py_ssize_t SWEEPS_PER_BATCH = 16
+# Up to this many kept rows are rotated inside the sweep itself.
+cdef Py_ssize_t FEW_ROWS = 4
 
 
 cdef inline bint _finite(double x) noexcept nogil:
@@ -138,7 +142,7 @@ cdef void _reverse_columns(double* z, Py_ssize_t ldz, Py_ssize_t nrows,
 # Values only: square-root-free QL (Pal-Walker-Kahan) on q_i = e_i^2.
 # ----------------------------------------------------------------------------
 cdef int _values_core(double* d, double* e, Py_ssize_t n,
-                      Py_ssize_t max_sweeps) noexcept nogil:
+                      Py_ssize_t max_sweeps, Py_ssize_t* sweeps_out) noexcept nogil:
     """Eigenvalues of the tridiagonal (d, e) into d (unordered); e is destroyed.
 
     ``e`` must have room for n entries.  Returns 0, or 1 when the sweep limit
@@ -147,7 +151,7 @@ cdef int _values_core(double* d, double* e, Py_ssize_t n,
     cdef Py_ssize_t l1 = 0, l, lend, lstart, m, i
     cdef Py_ssize_t sweeps = 0
     cdef double anorm, scale, inv2
-    cdef double p, rte, sigma, r, c, s, oldc, gamma, oldgam, pp, bb, alpha
+    cdef double p, rte, sigma, r, c, s, oldc, gamma, oldgam, pp, bb, alpha, q
     cdef double a, b, t, sm
     cdef int status = 0
 
@@ -243,12 +247,15 @@ cdef int _values_core(double* d, double* e, Py_ssize_t n,
                 oldc = c
                 c = pp / r
                 s = bb / r
+                # gamma^2 / c = gamma^2 * (r / pp): the quotient is formed
+                # beside c, so the loop-carried chain has one division.
+                q = r / pp
                 oldgam = gamma
                 alpha = d[i]
                 gamma = c * (alpha - sigma) - s * oldgam
                 d[i + 1] = oldgam + (alpha - gamma)
                 if c != 0.0:
-                    pp = (gamma * gamma) / c
+                    pp = (gamma * gamma) * q
                 else:
                     pp = oldc * bb
                 i -= 1
@@ -265,61 +272,135 @@ cdef int _values_core(double* d, double* e, Py_ssize_t n,
             for i in range(lstart, lend):
                 e[i] = sqrt(e[i])
         if status:
-            return status
-    return 0
+            break
+    sweeps_out[0] = sweeps
+    return status
 
 
 # ----------------------------------------------------------------------------
 # Vectors: QL with Givens rotations, accumulated into the kept rows of Z.
 # ----------------------------------------------------------------------------
-cdef void _apply_sweep(double* z, Py_ssize_t ldz, Py_ssize_t nrows,
-                       const double* cs, const double* sn,
-                       Py_ssize_t lo, Py_ssize_t m, double* carry) noexcept nogil:
-    """Apply rotations i = m-1 down to lo (in that order) to columns of Z.
+cdef struct SweepBatch:
+    # Rotations of up to ``capacity`` sweeps, not yet applied to Z.  Sweep j
+    # holds rotations i = hi[j]-1 down to lo[j] in cs/sn[j*n + i].
+    double* cs
+    double* sn
+    Py_ssize_t* lo
+    Py_ssize_t* hi
+    Py_ssize_t count
+    Py_ssize_t capacity
+    Py_ssize_t n
+
+
+cdef inline void _chain8(double* z, Py_ssize_t ldz, const double* cs,
+                         const double* sn, Py_ssize_t lo, Py_ssize_t m) noexcept nogil:
+    """One sweep's rotations applied to 8 consecutive rows starting at z.
+
+    The eight running entries live in registers (the compiler pairs them into
+    vector registers), so each entry of Z costs one load and one store.
+    """
+    cdef double c, s, a0, a1, a2, a3, a4, a5, a6, a7
+    cdef double* zi = z + m * ldz
+    cdef double* zi1
+    cdef double r0 = zi[0], r1 = zi[1], r2 = zi[2], r3 = zi[3]
+    cdef double r4 = zi[4], r5 = zi[5], r6 = zi[6], r7 = zi[7]
+    cdef Py_ssize_t i = m - 1
+    while i >= lo:
+        c = cs[i]
+        s = sn[i]
+        zi1 = zi
+        zi = zi - ldz
+        a0 = zi[0]
+        a1 = zi[1]
+        a2 = zi[2]
+        a3 = zi[3]
+        a4 = zi[4]
+        a5 = zi[5]
+        a6 = zi[6]
+        a7 = zi[7]
+        zi1[0] = s * a0 + c * r0
+        zi1[1] = s * a1 + c * r1
+        zi1[2] = s * a2 + c * r2
+        zi1[3] = s * a3 + c * r3
+        zi1[4] = s * a4 + c * r4
+        zi1[5] = s * a5 + c * r5
+        zi1[6] = s * a6 + c * r6
+        zi1[7] = s * a7 + c * r7
+        r0 = c * a0 - s * r0
+        r1 = c * a1 - s * r1
+        r2 = c * a2 - s * r2
+        r3 = c * a3 - s * r3
+        r4 = c * a4 - s * r4
+        r5 = c * a5 - s * r5
+        r6 = c * a6 - s * r6
+        r7 = c * a7 - s * r7
+        i -= 1
+    zi[0] = r0
+    zi[1] = r1
+    zi[2] = r2
+    zi[3] = r3
+    zi[4] = r4
+    zi[5] = r5
+    zi[6] = r6
+    zi[7] = r7
+
+
+cdef void _flush_batch(SweepBatch* batch, double* z, Py_ssize_t ldz,
+                       Py_ssize_t nrows, double* carry) noexcept nogil:
+    """Apply every stored sweep, in order, to Z; one block of rows at a time.
 
     Rotation i maps columns (z_i, z_{i+1}) to (c z_i - s z_{i+1}, s z_i + c z_{i+1}).
-    Each row carries its running column-(i+1) entry from one rotation to the
-    next, so every entry is loaded and stored once per sweep.
+    Rows of Z transform independently (Z <- Z Q_1 Q_2 ...), so a block of rows
+    can take all stored sweeps while it sits in cache: memory traffic drops by
+    the number of sweeps in the batch.  Within a sweep each row carries its
+    running column-(i+1) entry along the chain, so each entry is loaded and
+    stored once, and the loop over the rows of the block vectorises.
     """
-    cdef Py_ssize_t r0, rb, k, i
-    cdef double c, s, a, cr
+    cdef Py_ssize_t r0, rb, k, k8, rem, i, j, lo, m
+    cdef Py_ssize_t n = batch.n
+    cdef double c, s, a
+    cdef const double* cs
+    cdef const double* sn
     cdef double* zi
     cdef double* zi1
-    if nrows == 1:
-        cr = z[m * ldz]
-        i = m - 1
-        while i >= lo:
-            c = cs[i]
-            s = sn[i]
-            a = z[i * ldz]
-            z[(i + 1) * ldz] = s * a + c * cr
-            cr = c * a - s * cr
-            i -= 1
-        z[lo * ldz] = cr
-        return
     r0 = 0
     while r0 < nrows:
         rb = nrows - r0
         if rb > ROW_BLOCK:
             rb = ROW_BLOCK
-        zi1 = z + m * ldz + r0
-        for k in range(rb):
-            carry[k] = zi1[k]
-        i = m - 1
-        while i >= lo:
-            c = cs[i]
-            s = sn[i]
-            zi = z + i * ldz + r0
-            zi1 = zi + ldz
-            for k in range(rb):
-                a = zi[k]
-                zi1[k] = s * a + c * carry[k]
-                carry[k] = c * a - s * carry[k]
-            i -= 1
-        zi = z + lo * ldz + r0
-        for k in range(rb):
-            zi[k] = carry[k]
+        for j in range(batch.count):
+            lo = batch.lo[j]
+            m = batch.hi[j]
+            cs = batch.cs + j * n
+            sn = batch.sn + j * n
+            k = 0
+            while k + 8 <= rb:
+                _chain8(z + r0 + k, ldz, cs, sn, lo, m)
+                k += 8
+            if k == rb:
+                continue
+            # Leftover rows (fewer than 8) through the generic carry loop.
+            k8 = k
+            rem = rb - k8
+            zi1 = z + m * ldz + r0 + k8
+            for k in range(rem):
+                carry[k] = zi1[k]
+            i = m - 1
+            while i >= lo:
+                c = cs[i]
+                s = sn[i]
+                zi = z + i * ldz + r0 + k8
+                zi1 = zi + ldz
+                for k in range(rem):
+                    a = zi[k]
+                    zi1[k] = s * a + c * carry[k]
+                    carry[k] = c * a - s * carry[k]
+                i -= 1
+            zi = z + lo * ldz + r0 + k8
+            for k in range(rem):
+                zi[k] = carry[k]
         r0 += rb
+    batch.count = 0
 
 
 cdef inline void _rotate_pair(double* z, Py_ssize_t ldz, Py_ssize_t nrows,
@@ -338,16 +419,20 @@ cdef inline void _rotate_pair(double* z, Py_ssize_t ldz, Py_ssize_t nrows,
 
 cdef int _vectors_core(double* d, double* e, Py_ssize_t n,
                        double* z, Py_ssize_t ldz, Py_ssize_t nrows,
-                       double* cs, double* sn, double* carry,
-                       Py_ssize_t max_sweeps) noexcept nogil:
+                       SweepBatch* batch, double* carry,
+                       Py_ssize_t max_sweeps, Py_ssize_t* sweeps_out) noexcept nogil:
     """Eigenvalues into d (unordered) and Z <- Z Q (Q the eigenvector matrix).
 
     Z has ``nrows`` rows stored column-major with leading dimension ``ldz``;
-    ``e``, ``cs`` and ``sn`` need n entries, ``carry`` ROW_BLOCK entries.
+    ``e`` needs n entries, ``carry`` max(ROW_BLOCK, FEW_ROWS) entries; the
+    batch is unused when nrows <= FEW_ROWS.
     Returns 0, or 1 when the sweep limit was reached.
     """
-    cdef Py_ssize_t l1 = 0, l, lend, lstart, m, i, lowest
+    cdef Py_ssize_t l1 = 0, l, lend, lstart, m, i, k, lowest
     cdef Py_ssize_t sweeps = 0
+    cdef bint few_rows = nrows <= FEW_ROWS
+    cdef double* cs = NULL
+    cdef double* sn = NULL
     cdef double anorm, scale, inv
     cdef double p, g, r, c, s, f, b, t, a, cc, theta, tj, cj, sj
     cdef int status = 0
@@ -383,6 +468,8 @@ cdef int _vectors_core(double* d, double* e, Py_ssize_t n,
         if fabs(d[lend]) < fabs(d[l]):
             _reverse(d, l, lend)
             _reverse(e, l, lend - 1)
+            if not few_rows and batch.count > 0:
+                _flush_batch(batch, z, ldz, nrows, carry)
             _reverse_columns(z, ldz, nrows, l, lend)
         lstart = l
 
@@ -415,7 +502,16 @@ cdef int _vectors_core(double* d, double* e, Py_ssize_t n,
                 d[l] = a - tj * b
                 d[l + 1] = cc + tj * b
                 e[l] = 0.0
-                _rotate_pair(z, ldz, nrows, l, cj, sj)
+                if few_rows:
+                    _rotate_pair(z, ldz, nrows, l, cj, sj)
+                else:
+                    batch.cs[batch.count * n + l] = cj
+                    batch.sn[batch.count * n + l] = sj
+                    batch.lo[batch.count] = l
+                    batch.hi[batch.count] = l + 1
+                    batch.count += 1
+                    if batch.count == batch.capacity:
+                        _flush_batch(batch, z, ldz, nrows, carry)
                 l += 2
                 continue
             if sweeps >= max_sweeps:
@@ -432,6 +528,12 @@ cdef int _vectors_core(double* d, double* e, Py_ssize_t n,
             c = 1.0
             p = 0.0
             lowest = l
+            if few_rows:
+                for k in range(nrows):
+                    carry[k] = z[m * ldz + k]
+            else:
+                cs = batch.cs + batch.count * n
+                sn = batch.sn + batch.count * n
             i = m - 1
             while i >= l:
                 f = s * e[i]
@@ -445,18 +547,34 @@ cdef int _vectors_core(double* d, double* e, Py_ssize_t n,
                     e[m] = 0.0
                     lowest = i + 1
                     break
-                s = f / r
-                c = g / r
+                inv = 1.0 / r
+                s = f * inv
+                c = g * inv
                 g = d[i + 1] - p
                 r = (d[i] - g) * s + 2.0 * c * b
                 p = s * r
                 d[i + 1] = g + p
                 g = c * r - b
-                cs[i] = c
-                sn[i] = s
+                if few_rows:
+                    # A few kept rows: rotate them here, off the sweep's
+                    # critical path, instead of storing the rotations.
+                    for k in range(nrows):
+                        a = z[i * ldz + k]
+                        z[(i + 1) * ldz + k] = s * a + c * carry[k]
+                        carry[k] = c * a - s * carry[k]
+                else:
+                    cs[i] = c
+                    sn[i] = s
                 i -= 1
-            if lowest < m:
-                _apply_sweep(z, ldz, nrows, cs, sn, lowest, m, carry)
+            if few_rows:
+                for k in range(nrows):
+                    z[lowest * ldz + k] = carry[k]
+            elif lowest < m:
+                batch.lo[batch.count] = lowest
+                batch.hi[batch.count] = m
+                batch.count += 1
+                if batch.count == batch.capacity:
+                    _flush_batch(batch, z, ldz, nrows, carry)
             if lowest == l:
                 d[l] -= p
                 e[l] = g
@@ -469,8 +587,11 @@ cdef int _vectors_core(double* d, double* e, Py_ssize_t n,
             for i in range(lstart, lend):
                 e[i] *= inv
         if status:
-            return status
-    return 0
+            break
+    if not few_rows and batch.count > 0:
+        _flush_batch(batch, z, ldz, nrows, carry)
+    sweeps_out[0] = sweeps
+    return status
 
 
 cdef void _permute_columns(double* z, Py_ssize_t ldz, Py_ssize_t nrows,
@@ -517,12 +638,13 @@ def _isolated_mask(double[::1] e_work, Py_ssize_t n):
 # Thin typed wrappers (called by tridiagonal.py only).
 # ----------------------------------------------------------------------------
 def values(const double[::1] d, const double[::1] e, Py_ssize_t max_sweeps):
-    """Return (status, w, e_work).
+    """Return (status, w, e_work, sweeps).
 
     status 0: w holds the eigenvalues ascending.  -1 / -2: d / e is not finite.
     1: sweep limit reached; w unsorted, e_work marks the converged entries.
     """
     cdef Py_ssize_t n = d.shape[0]
+    cdef Py_ssize_t sweeps = 0
     cdef int status
     w = np.empty(n)
     ework = np.empty(n)
@@ -538,21 +660,22 @@ def values(const double[::1] d, const double[::1] e, Py_ssize_t max_sweeps):
             if n > 1:
                 memcpy(&ev[0], &e[0], (n - 1) * sizeof(double))
             ev[n - 1] = 0.0
-            status = _values_core(&wv[0], &ev[0], n, max_sweeps)
+            status = _values_core(&wv[0], &ev[0], n, max_sweeps, &sweeps)
     if status == 0:
         w.sort()
-    return status, w, ework
+    return status, w, ework, sweeps
 
 
 def eigen(const double[::1] d, const double[::1] e, const Py_ssize_t[::1] rows,
           Py_ssize_t max_sweeps):
-    """Return (status, w, z, e_work); z is len(rows) x n (all rows if rows is None).
+    """Return (status, w, z, e_work, sweeps); z is len(rows) x n (all rows if rows is None).
 
     Row indices must already be normalised to 0..n-1.  Status as in ``values``.
     """
     cdef Py_ssize_t n = d.shape[0]
     cdef Py_ssize_t nrows = n if rows is None else rows.shape[0]
     cdef Py_ssize_t k
+    cdef Py_ssize_t sweeps = 0
     cdef int status
     cdef bint full = rows is None
     w = np.empty(n)
@@ -562,6 +685,9 @@ def eigen(const double[::1] d, const double[::1] e, const Py_ssize_t[::1] rows,
     cdef double[::1] ev = ework
     cdef double[::1, :] zv = z
     cdef double* work = NULL
+    cdef Py_ssize_t* ends = NULL
+    cdef SweepBatch batch
+    cdef Py_ssize_t cap
     cdef double* zp = &zv[0, 0] if nrows > 0 else NULL
     with nogil:
         if not _scan_finite(&d[0], n):
@@ -575,20 +701,31 @@ def eigen(const double[::1] d, const double[::1] e, const Py_ssize_t[::1] rows,
             ev[n - 1] = 0.0
             for k in range(nrows):
                 zp[(rows[k] if not full else k) * nrows + k] = 1.0
-            work = <double*> malloc((2 * n + ROW_BLOCK) * sizeof(double))
-            if work == NULL:
+            cap = SWEEPS_PER_BATCH if nrows > FEW_ROWS else 0
+            batch.n = n
+            batch.capacity = cap
+            batch.count = 0
+            work = <double*> malloc((2 * cap * n + ROW_BLOCK + FEW_ROWS) * sizeof(double))
+            ends = <Py_ssize_t*> malloc((2 * cap + 1) * sizeof(Py_ssize_t))
+            if work == NULL or ends == NULL:
                 status = -3
             else:
+                batch.cs = work
+                batch.sn = work + cap * n
+                batch.lo = ends
+                batch.hi = ends + cap
                 status = _vectors_core(&wv[0], &ev[0], n, zp, nrows, nrows,
-                                       work, work + n, work + 2 * n, max_sweeps)
-                free(work)
+                                       &batch, work + 2 * cap * n, max_sweeps,
+                                       &sweeps)
+            free(work)
+            free(ends)
     if status == -3:
         raise MemoryError("tridiagonal kernel: no memory for the rotation buffers")
     if status == 0:
         order = np.argsort(w)
         w = w[order]
         _apply_order(z, order, nrows, n)
-    return status, w, z, ework
+    return status, w, z, ework, sweeps
 
 
 cdef void _apply_order_c(double* zp, Py_ssize_t nrows, const Py_ssize_t* op,

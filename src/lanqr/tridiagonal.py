@@ -108,7 +108,7 @@ def _solve_values(d, e, max_sweeps=None):
         return d.copy()
     if max_sweeps is None:
         max_sweeps = SWEEPS_PER_ORDER * n
-    status, w, e_work = _tridiag.values(d, e, max_sweeps)
+    status, w, e_work, _ = _tridiag.values(d, e, max_sweeps)
     if status:
         _raise_for(status, n, w, e_work, max_sweeps)
     return w
@@ -122,7 +122,7 @@ def _solve_eigen(d, e, rows=None, max_sweeps=None):
         return np.empty(0), np.empty((0 if rows is None else rows.shape[0], 0), order="F")
     if max_sweeps is None:
         max_sweeps = SWEEPS_PER_ORDER * n
-    status, w, z, e_work = _tridiag.eigen(d, e, rows, max_sweeps)
+    status, w, z, e_work, _ = _tridiag.eigen(d, e, rows, max_sweeps)
     if status:
         _raise_for(status, n, w, e_work, max_sweeps)
     return w, z
