@@ -45,12 +45,14 @@ cdef double SAFMAX = 2.0 ** 1022        # 1 / SAFMIN
 cdef double SSFMAX = sqrt(SAFMAX) / 3.0
 cdef double SSFMIN = sqrt(SAFMIN) / EPS2
 
-# Rows of Z updated together when a sweep's rotations are applied: 64 rows of
-# two columns is 1 KiB, resident in L1 for the whole sweep.  Chosen by
-# measurement (bench/bench_tridiagonal.py --row-block).
-cdef Py_ssize_t ROW_BLOCK = 64
-# Sweeps whose rotations are stored before they are applied to Z together.
-cdef Py_ssize_t SWEEPS_PER_BATCH = 16
+# Rotations of SWEEPS_PER_BATCH sweeps are stored, then applied to Z one block
+# of ROW_BLOCK rows at a time: 8 rows x n columns (64 KiB at n = 1000) stay in
+# L2 while all stored sweeps pass over them, so Z streams from memory once per
+# batch instead of once per sweep.  Both chosen by measurement
+# (bench/bench_tridiagonal.py --tune): at n = 2000, 8 rows and 32 sweeps ran in
+# 0.28x 'stev' time, 64 rows and 1 sweep (no batching) in 1.6x.
+cdef Py_ssize_t ROW_BLOCK = 8
+cdef Py_ssize_t SWEEPS_PER_BATCH = 32
 # Up to this many kept rows are rotated inside the sweep itself.
 cdef Py_ssize_t FEW_ROWS = 4
 
@@ -290,6 +292,7 @@ cdef struct SweepBatch:
     Py_ssize_t count
     Py_ssize_t capacity
     Py_ssize_t n
+    Py_ssize_t row_block   # rows of Z that take all stored sweeps together
 
 
 cdef inline void _chain8(double* z, Py_ssize_t ldz, const double* cs,
@@ -366,8 +369,8 @@ cdef void _flush_batch(SweepBatch* batch, double* z, Py_ssize_t ldz,
     r0 = 0
     while r0 < nrows:
         rb = nrows - r0
-        if rb > ROW_BLOCK:
-            rb = ROW_BLOCK
+        if rb > batch.row_block:
+            rb = batch.row_block
         for j in range(batch.count):
             lo = batch.lo[j]
             m = batch.hi[j]
@@ -424,7 +427,7 @@ cdef int _vectors_core(double* d, double* e, Py_ssize_t n,
     """Eigenvalues into d (unordered) and Z <- Z Q (Q the eigenvector matrix).
 
     Z has ``nrows`` rows stored column-major with leading dimension ``ldz``;
-    ``e`` needs n entries, ``carry`` max(ROW_BLOCK, FEW_ROWS) entries; the
+    ``e`` needs n entries, ``carry`` max(batch.row_block, FEW_ROWS) entries; the
     batch is unused when nrows <= FEW_ROWS.
     Returns 0, or 1 when the sweep limit was reached.
     """
@@ -667,7 +670,8 @@ def values(const double[::1] d, const double[::1] e, Py_ssize_t max_sweeps):
 
 
 def eigen(const double[::1] d, const double[::1] e, const Py_ssize_t[::1] rows,
-          Py_ssize_t max_sweeps):
+          Py_ssize_t max_sweeps, Py_ssize_t row_block=ROW_BLOCK,
+          Py_ssize_t sweeps_per_batch=SWEEPS_PER_BATCH):
     """Return (status, w, z, e_work, sweeps); z is len(rows) x n (all rows if rows is None).
 
     Row indices must already be normalised to 0..n-1.  Status as in ``values``.
@@ -701,11 +705,12 @@ def eigen(const double[::1] d, const double[::1] e, const Py_ssize_t[::1] rows,
             ev[n - 1] = 0.0
             for k in range(nrows):
                 zp[(rows[k] if not full else k) * nrows + k] = 1.0
-            cap = SWEEPS_PER_BATCH if nrows > FEW_ROWS else 0
+            cap = sweeps_per_batch if nrows > FEW_ROWS else 0
+            batch.row_block = row_block
             batch.n = n
             batch.capacity = cap
             batch.count = 0
-            work = <double*> malloc((2 * cap * n + ROW_BLOCK + FEW_ROWS) * sizeof(double))
+            work = <double*> malloc((2 * cap * n + row_block + FEW_ROWS) * sizeof(double))
             ends = <Py_ssize_t*> malloc((2 * cap + 1) * sizeof(Py_ssize_t))
             if work == NULL or ends == NULL:
                 status = -3
