@@ -5,10 +5,16 @@ QR kernel for symmetric tridiagonal matrices.
 """
 from lanqr._version import __version__
 from lanqr.tridiagonal import tridiag_eigen, tridiag_values, TridiagonalConvergenceError
+from lanqr.inertia import count_below, InertiaError
+from lanqr.transforms import ShiftInvert, SingularShiftError
 
 __all__ = [
     "__version__",
     "tridiag_eigen",
     "tridiag_values",
     "TridiagonalConvergenceError",
+    "count_below",
+    "InertiaError",
+    "ShiftInvert",
+    "SingularShiftError",
 ]
