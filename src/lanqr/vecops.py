@@ -158,6 +158,9 @@ class CsrProduct:
         Row distribution among threads: one block per thread holding an equal
         share of the stored entries, or dynamic chunks of 8192 rows.  Either
         gives bitwise the same result.
+    serial_below : int
+        Products with fewer stored entries run on one thread (default
+        :data:`SERIAL_BELOW_NNZ`; 0 forces the threaded path, for tests).
 
     Raises
     ------
@@ -186,7 +189,8 @@ class CsrProduct:
     True
     """
 
-    def __init__(self, matrix, *, n_threads=None, check_finite=True, schedule="static"):
+    def __init__(self, matrix, *, n_threads=None, check_finite=True, schedule="static",
+                 serial_below=SERIAL_BELOW_NNZ):
         if not sp.issparse(matrix) or matrix.format != "csr":
             kind = type(matrix).__name__
             fmt = getattr(matrix, "format", None)
@@ -225,7 +229,7 @@ class CsrProduct:
         self.shape = (int(n_rows), int(n_cols))
         self.nnz = nnz
         threads = resolve_threads(n_threads)
-        self.n_threads = 1 if nnz < SERIAL_BELOW_NNZ else threads
+        self.n_threads = 1 if nnz < serial_below else threads
         self._schedule = _SCHEDULES[schedule]
 
     def matvec(self, x, out=None):
@@ -344,6 +348,8 @@ def _column_major(V, name, writable=False):
     if not isinstance(V, np.ndarray) or V.dtype != np.float64 or V.ndim != 2:
         raise ValueError(f"{name} must be a 2-D float64 ndarray")
     n, j = V.shape
+    if V.size == 0:
+        return V
     if n > 1 and V.strides[0] != V.itemsize:
         raise ValueError(f"{name} must be column-major (np.asfortranarray), got strides {V.strides}")
     if j > 1 and (V.strides[1] < n * V.itemsize or V.strides[1] % V.itemsize):
@@ -355,7 +361,8 @@ def _column_major(V, name, writable=False):
     return V
 
 
-def recurrence_update(w, v, v_prev, alpha, beta, *, n_threads=None):
+def recurrence_update(w, v, v_prev, alpha, beta, *, n_threads=None,
+                      serial_below=SERIAL_BELOW_NNZ):
     """Three-term recurrence update in one pass: ``w -= alpha v + beta v_prev``.
 
     Parameters
@@ -366,7 +373,9 @@ def recurrence_update(w, v, v_prev, alpha, beta, *, n_threads=None):
         Current and previous Lanczos vectors; ``v_prev`` may be None (first step).
     alpha, beta : float
     n_threads : int or None
-        Threads (serial below :data:`SERIAL_BELOW_NNZ` entries).
+        Threads for long vectors.
+    serial_below : int
+        Vectors shorter than this are updated on one thread.
 
     Returns
     -------
@@ -385,7 +394,9 @@ def recurrence_update(w, v, v_prev, alpha, beta, *, n_threads=None):
     v = _float_vector(v, n, "v")
     if v_prev is not None:
         v_prev = _float_vector(v_prev, n, "v_prev")
-    threads = 1 if n < SERIAL_BELOW_NNZ else resolve_threads(n_threads)
+    threads = resolve_threads(n_threads)
+    if n < serial_below:
+        threads = 1
     return float(np.sqrt(_vecops.recurrence_update(w, v, v_prev, float(alpha), float(beta),
                                                    threads)))
 
