@@ -463,6 +463,242 @@ cdef double _sum_squares(double[::1] w) noexcept nogil:
     return r * r
 
 
+# Gram-Schmidt in row blocks, own loops and OpenMP threads.
+#
+# Two dgemv calls read V twice per pass, and a DGKS repeat reads it twice
+# more.  Here a pass walks V in row blocks small enough to stay in L2: the
+# block first updates w (w_b -= V_b c) and, while it is still in cache, gives
+# the next projection's partial sums (V_b^T w_b).  A pass with its repeat then
+# reads V three times instead of four, one without a repeat twice, and the
+# threads are ours (no nested BLAS thread pool).  Partial sums are combined
+# in thread order, so results are reproducible for a given thread count.
+
+cdef void _project_rows(const double* V, Py_ssize_t ldv, Py_ssize_t j,
+                        const double* w, double* c,
+                        Py_ssize_t r0, Py_ssize_t r1) noexcept nogil:
+    # c[q] += sum_i V[i, q] w[i]; four columns and two rows at a time give eight
+    # independent add chains, enough to hide the add latency.
+    cdef Py_ssize_t q = 0, i
+    cdef const double* p0
+    cdef const double* p1
+    cdef const double* p2
+    cdef const double* p3
+    cdef double a0, a1, a2, a3, b0, b1, b2, b3, wi, wk
+    while q + 4 <= j:
+        p0 = V + q * ldv
+        p1 = p0 + ldv
+        p2 = p1 + ldv
+        p3 = p2 + ldv
+        a0 = 0.0; a1 = 0.0; a2 = 0.0; a3 = 0.0
+        b0 = 0.0; b1 = 0.0; b2 = 0.0; b3 = 0.0
+        i = r0
+        while i + 1 < r1:
+            wi = w[i]
+            wk = w[i + 1]
+            a0 = a0 + p0[i] * wi
+            a1 = a1 + p1[i] * wi
+            a2 = a2 + p2[i] * wi
+            a3 = a3 + p3[i] * wi
+            b0 = b0 + p0[i + 1] * wk
+            b1 = b1 + p1[i + 1] * wk
+            b2 = b2 + p2[i + 1] * wk
+            b3 = b3 + p3[i + 1] * wk
+            i += 2
+        if i < r1:
+            wi = w[i]
+            a0 = a0 + p0[i] * wi
+            a1 = a1 + p1[i] * wi
+            a2 = a2 + p2[i] * wi
+            a3 = a3 + p3[i] * wi
+        c[q] += a0 + b0
+        c[q + 1] += a1 + b1
+        c[q + 2] += a2 + b2
+        c[q + 3] += a3 + b3
+        q += 4
+    while q < j:
+        p0 = V + q * ldv
+        a0 = 0.0
+        b0 = 0.0
+        i = r0
+        while i + 1 < r1:
+            a0 = a0 + p0[i] * w[i]
+            b0 = b0 + p0[i + 1] * w[i + 1]
+            i += 2
+        if i < r1:
+            a0 = a0 + p0[i] * w[i]
+        c[q] += a0 + b0
+        q += 1
+
+
+cdef void _subtract_rows(const double* V, Py_ssize_t ldv, Py_ssize_t j,
+                         const double* c, double* w,
+                         Py_ssize_t r0, Py_ssize_t r1) noexcept nogil:
+    # w[i] -= sum_q V[i, q] c[q], four columns per sweep over the block.
+    cdef Py_ssize_t q = 0, i
+    cdef const double* p0
+    cdef const double* p1
+    cdef const double* p2
+    cdef const double* p3
+    cdef double c0, c1, c2, c3
+    while q + 4 <= j:
+        p0 = V + q * ldv
+        p1 = p0 + ldv
+        p2 = p1 + ldv
+        p3 = p2 + ldv
+        c0 = c[q]; c1 = c[q + 1]; c2 = c[q + 2]; c3 = c[q + 3]
+        for i in range(r0, r1):
+            w[i] = w[i] - ((p0[i] * c0 + p1[i] * c1) + (p2[i] * c2 + p3[i] * c3))
+        q += 4
+    while q < j:
+        p0 = V + q * ldv
+        c0 = c[q]
+        for i in range(r0, r1):
+            w[i] = w[i] - p0[i] * c0
+        q += 1
+
+
+cdef double _sumsq_rows(const double* w, Py_ssize_t r0, Py_ssize_t r1) noexcept nogil:
+    cdef Py_ssize_t i
+    cdef double a = 0.0, b = 0.0
+    i = r0
+    while i + 1 < r1:
+        a = a + w[i] * w[i]
+        b = b + w[i + 1] * w[i + 1]
+        i += 2
+    if i < r1:
+        a = a + w[i] * w[i]
+    return a + b
+
+
+cdef void _gs_sweep(const double* V, Py_ssize_t ldv, Py_ssize_t n, Py_ssize_t j,
+                    double* w, const double* c_sub, double* c_next, double* sumsq,
+                    Py_ssize_t r0, Py_ssize_t r1, Py_ssize_t block) noexcept nogil:
+    # One thread's rows: optionally subtract V c_sub, optionally project onto V
+    # (c_next += V^T w), always accumulate ||w||^2, block by block.
+    cdef Py_ssize_t b0, b1, q
+    cdef double acc = 0.0
+    if c_next != NULL:
+        for q in range(j):
+            c_next[q] = 0.0
+    b0 = r0
+    while b0 < r1:
+        b1 = b0 + block
+        if b1 > r1:
+            b1 = r1
+        if c_sub != NULL:
+            _subtract_rows(V, ldv, j, c_sub, w, b0, b1)
+        if c_next != NULL:
+            _project_rows(V, ldv, j, w, c_next, b0, b1)
+        acc = acc + _sumsq_rows(w, b0, b1)
+        b0 = b1
+    sumsq[0] = acc
+
+
+cdef void _gs_pass(const double* V, Py_ssize_t ldv, Py_ssize_t n, Py_ssize_t j,
+                   double* w, const double* c_sub, double* c_next, double* partial,
+                   double* sumsq, int n_threads, Py_ssize_t block) noexcept nogil:
+    """A parallel sweep; c_next (if not NULL) and sumsq get the thread sums."""
+    cdef int t, nt
+    cdef int team[1]
+    cdef double partial_sq[MAX_THREADS]
+    cdef Py_ssize_t q, r0, r1
+    cdef double total
+    if n_threads <= 1:
+        _gs_sweep(V, ldv, n, j, w, c_sub, c_next, sumsq, 0, n, block)
+        return
+    team[0] = 1
+    with parallel(num_threads=n_threads):
+        t = lanqr_thread_num()
+        nt = lanqr_num_threads()
+        if t == 0:
+            team[0] = nt
+        r0 = (n * t) // nt
+        r1 = (n * (t + 1)) // nt
+        _gs_sweep(V, ldv, n, j, w, c_sub,
+                  partial + t * j if c_next != NULL else NULL,
+                  &partial_sq[t], r0, r1, block)
+    total = 0.0
+    for t in range(team[0]):
+        total = total + partial_sq[t]
+    sumsq[0] = total
+    if c_next != NULL:
+        for q in range(j):
+            c_next[q] = 0.0
+        for t in range(team[0]):
+            for q in range(j):
+                c_next[q] = c_next[q] + partial[t * j + q]
+
+
+cdef int _cgs_blocked(Py_ssize_t n, Py_ssize_t j, const double* V, Py_ssize_t ldv,
+                      double* w, double* coef, double* c_cur, double* c_next,
+                      double* partial, double eta, int max_passes, int n_threads,
+                      double* norm_in, double* norm_out) noexcept nogil:
+    cdef Py_ssize_t block, q
+    cdef double before, after, sq
+    cdef int passes = 0
+    cdef double* swap
+    # ~256 KiB of V per block: it stays in L2 between the update and the projection.
+    block = 32768 // (j if j > 0 else 1)
+    if block < 256:
+        block = 256
+    if block > 8192:
+        block = 8192
+    # First sweep: c_cur = V^T w and ||w||.
+    _gs_pass(V, ldv, n, j, w, NULL, c_cur, partial, &sq, n_threads, block)
+    before = sqrt(sq)
+    norm_in[0] = before
+    for q in range(j):
+        coef[q] = c_cur[q]
+    while True:
+        passes += 1
+        # w -= V c_cur, and (unless this is the last pass allowed) the next
+        # projection from the same cached blocks.
+        _gs_pass(V, ldv, n, j, w, c_cur, c_next if passes < max_passes else NULL,
+                 partial, &sq, n_threads, block)
+        after = sqrt(sq)
+        if after >= eta * before or passes >= max_passes:
+            break
+        for q in range(j):
+            coef[q] = coef[q] + c_next[q]
+        swap = c_cur
+        c_cur = c_next
+        c_next = swap
+        before = after
+    norm_out[0] = after
+    return passes
+
+
+def cgs_blocked(double[:, :] V, double[::1] w, double[::1] coef, double eta,
+                int max_passes, int n_threads):
+    """Gram-Schmidt with DGKS in cache-sized row blocks (own loops, OpenMP).
+
+    Returns (norm_before, norm_after, passes).
+    """
+    cdef Py_ssize_t n = V.shape[0], j = V.shape[1]
+    cdef double norm_in = 0.0, norm_out = 0.0
+    cdef int passes, nt = n_threads if n_threads > 1 else 1
+    cdef Py_ssize_t ldv = _ld(V)
+    cdef double* scratch
+    if n == 0:
+        return 0.0, 0.0, 0
+    if j == 0:
+        norm_in = sqrt(_sumsq_rows(&w[0], 0, n))
+        return norm_in, norm_in, 0
+    if nt > MAX_THREADS:
+        nt = MAX_THREADS
+    scratch = <double*>PyMem_RawMalloc((2 + nt) * j * sizeof(double))
+    if scratch == NULL:
+        raise MemoryError()
+    try:
+        with nogil:
+            passes = _cgs_blocked(n, j, &V[0, 0], ldv, &w[0], &coef[0],
+                                  scratch, scratch + j, scratch + 2 * j,
+                                  eta, max_passes, nt, &norm_in, &norm_out)
+    finally:
+        PyMem_RawFree(scratch)
+    return norm_in, norm_out, passes
+
+
 def block_project(double[:, :] V, double[:, :] W, double[:, :] C):
     """C = V^T W ; W -= V C with dgemm (all column-major, strides checked by
     the caller).  One classical Gram-Schmidt pass for a block."""

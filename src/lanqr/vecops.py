@@ -54,7 +54,7 @@ SERIAL_BELOW_NNZ = 200_000
 DGKS_ETA = 1.0 / np.sqrt(2.0)
 
 #: Rows per chunk for :func:`rotate_basis`: the scratch is chunk x k doubles.
-ROTATE_CHUNK_ROWS = 4096
+ROTATE_CHUNK_ROWS = 16384
 
 _SCHEDULES = {"static": 0, "dynamic": 1}
 
