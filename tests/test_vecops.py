@@ -159,6 +159,22 @@ def test_matvec_dot(matrix, n_threads):
     assert abs(alpha - x @ ref) <= bound
 
 
+def test_fused_reductions_do_not_depend_on_threads():
+    A = problems.laplacian_grid((150, 140))  # 21000 rows: several reduction chunks
+    x = np.random.default_rng(10).standard_normal(A.shape[1])
+    results = [CsrProduct(A, n_threads=t, serial_below=0).matvec_dot(x) for t in (1, 2, 3)]
+    for y, alpha in results[1:]:
+        np.testing.assert_array_equal(y, results[0][0])
+        assert alpha == results[0][1]
+    rng = np.random.default_rng(11)
+    w0, v, u = rng.standard_normal((3, 50_000))
+    norms = []
+    for t in (1, 2, 3):
+        w = w0.copy()
+        norms.append(recurrence_update(w, v, u, 0.3, 0.2, n_threads=t, serial_below=0))
+    assert norms[0] == norms[1] == norms[2]
+
+
 def test_input_vector_copied_when_needed():
     A = problems.laplacian_grid((20, 20))
     product = CsrProduct(A)

@@ -18,7 +18,9 @@
 #   scheduling hands out fixed row chunks.  The benchmark decides the default.
 # * A fused product: y = A x and alpha = x.y in the same row loop, and a fused
 #   recurrence update w -= alpha v + beta v_prev returning ||w||^2, so the three
-#   term recurrence costs two passes over memory instead of five.
+#   term recurrence costs two passes over memory instead of five.  Their sums
+#   are formed over fixed row chunks and added in chunk order, so alpha and
+#   ||w|| do not depend on the thread count either.
 # * Reorthogonalization through BLAS (scipy.linalg.cython_blas): classical
 #   Gram-Schmidt with dgemv and the DGKS test for a second pass, a block
 #   version with dgemm, and an in-place basis rotation V[:, :k] <- V[:, :m] Y
@@ -66,9 +68,10 @@ ctypedef fused index_t:
 # (one atomic per chunk) is negligible, small enough to balance a loaded core.
 cdef enum:
     DYNAMIC_CHUNK_ROWS = 8192
-# Most threads a kernel sizes its per-thread scratch for.
+# Reductions (alpha, ||w||) add partial sums of fixed row chunks in order.
 cdef enum:
-    MAX_THREADS = 256
+    REDUCE_CHUNKS = 1024
+    REDUCE_MIN_ROWS = 4096
 
 
 def openmp_enabled():
@@ -164,31 +167,32 @@ cdef void _csr_matvec(const index_t* indptr, const index_t* indices,
                       min((c + 1) * DYNAMIC_CHUNK_ROWS, n_rows))
 
 
+cdef inline Py_ssize_t _reduce_chunk(Py_ssize_t n) noexcept nogil:
+    # Rows per partial sum: fixed by n alone (never by the thread count), and
+    # at most REDUCE_CHUNKS chunks so the partial sums fit on the stack.
+    cdef Py_ssize_t chunk = (n + REDUCE_CHUNKS - 1) // REDUCE_CHUNKS
+    return chunk if chunk > REDUCE_MIN_ROWS else REDUCE_MIN_ROWS
+
+
 cdef double _csr_matvec_dot(const index_t* indptr, const index_t* indices,
                             const double* data, const double* x, double* y,
                             Py_ssize_t n_rows, int n_threads) noexcept nogil:
-    # Per-thread partial sums added in thread order: the result is
-    # deterministic for a given thread count.
-    cdef double partial[MAX_THREADS]
+    # Partial sums over fixed row chunks, added in chunk order: alpha is the
+    # same for every thread count.
+    cdef double partial[REDUCE_CHUNKS]
     cdef double acc = 0.0
-    cdef int t, nt
-    cdef int team[1]
-    cdef Py_ssize_t r0, r1
-    if n_threads <= 1 or n_rows < 2:
-        return _csr_rows_dot(indptr, indices, data, x, y, 0, n_rows)
-    if n_threads > MAX_THREADS:
-        n_threads = MAX_THREADS
-    team[0] = 1
-    with parallel(num_threads=n_threads):
-        t = lanqr_thread_num()
-        nt = lanqr_num_threads()
-        if t == 0:
-            team[0] = nt
-        r0 = _nnz_split(indptr, n_rows, t, nt)
-        r1 = _nnz_split(indptr, n_rows, t + 1, nt)
-        partial[t] = _csr_rows_dot(indptr, indices, data, x, y, r0, r1)
-    for t in range(team[0]):
-        acc = acc + partial[t]
+    cdef Py_ssize_t c, chunk = _reduce_chunk(n_rows)
+    cdef Py_ssize_t n_chunks = (n_rows + chunk - 1) // chunk
+    if n_threads <= 1:
+        for c in range(n_chunks):
+            partial[c] = _csr_rows_dot(indptr, indices, data, x, y, c * chunk,
+                                       min((c + 1) * chunk, n_rows))
+    else:
+        for c in prange(n_chunks, schedule="static", num_threads=n_threads):
+            partial[c] = _csr_rows_dot(indptr, indices, data, x, y, c * chunk,
+                                       min((c + 1) * chunk, n_rows))
+    for c in range(n_chunks):
+        acc = acc + partial[c]
     return acc
 
 
@@ -366,26 +370,21 @@ cdef double _recurrence_rows(double* w, const double* v, const double* v_prev,
 cdef double _recurrence(double* w, const double* v, const double* v_prev,
                         double alpha, double beta, Py_ssize_t n,
                         int n_threads) noexcept nogil:
-    cdef double partial[MAX_THREADS]
+    # Fixed chunks as in _csr_matvec_dot: ||w||^2 independent of the threads.
+    cdef double partial[REDUCE_CHUNKS]
     cdef double acc = 0.0
-    cdef int t, nt
-    cdef int team[1]
-    cdef Py_ssize_t r0, r1
-    if n_threads <= 1 or n < 2:
-        return _recurrence_rows(w, v, v_prev, alpha, beta, 0, n)
-    if n_threads > MAX_THREADS:
-        n_threads = MAX_THREADS
-    team[0] = 1
-    with parallel(num_threads=n_threads):
-        t = lanqr_thread_num()
-        nt = lanqr_num_threads()
-        if t == 0:
-            team[0] = nt
-        r0 = (n * t) // nt
-        r1 = (n * (t + 1)) // nt
-        partial[t] = _recurrence_rows(w, v, v_prev, alpha, beta, r0, r1)
-    for t in range(team[0]):
-        acc = acc + partial[t]
+    cdef Py_ssize_t c, chunk = _reduce_chunk(n)
+    cdef Py_ssize_t n_chunks = (n + chunk - 1) // chunk
+    if n_threads <= 1:
+        for c in range(n_chunks):
+            partial[c] = _recurrence_rows(w, v, v_prev, alpha, beta, c * chunk,
+                                          min((c + 1) * chunk, n))
+    else:
+        for c in prange(n_chunks, schedule="static", num_threads=n_threads):
+            partial[c] = _recurrence_rows(w, v, v_prev, alpha, beta, c * chunk,
+                                          min((c + 1) * chunk, n))
+    for c in range(n_chunks):
+        acc = acc + partial[c]
     return acc
 
 

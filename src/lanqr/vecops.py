@@ -273,9 +273,9 @@ class CsrProduct:
         -------
         y : ndarray, shape (n,)
         alpha : float
-            Partial sums are added per thread in thread order, so ``alpha`` is
-            reproducible for a given thread count (it may differ in the last
-            bits between thread counts).
+            Summed over fixed row chunks whose partial sums are added in
+            order, so ``alpha`` is the same for every thread count (it may
+            differ in the last bits from ``np.dot``).
 
         Raises
         ------
@@ -380,9 +380,10 @@ def recurrence_update(w, v, v_prev, alpha, beta, *, n_threads=None,
     Returns
     -------
     float
-        ``||w||`` after the update, from the same pass.  Computed as the square
-        root of a plain sum of squares: fine for Lanczos vectors of norm
-        ``<= ||A||``; use ``np.linalg.norm`` for data near overflow.
+        ``||w||`` after the update, from the same pass, the same for every
+        thread count (fixed row chunks, partial sums added in order).  The
+        square root of a plain sum of squares: fine for Lanczos vectors of
+        norm ``<= ||A||``; use ``np.linalg.norm`` for data near overflow.
 
     Raises
     ------
