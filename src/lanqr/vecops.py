@@ -17,6 +17,21 @@ trust what they are given.  Three groups:
 
 No module state is written after import: two threads may use two
 :class:`CsrProduct` objects (or the same one) at once.
+
+Choices made by measurement (``bench/bench_products.py``, 2-core shared
+machine):
+
+* Blocks of vectors are row-major (C order): one stored entry multiplies k
+  adjacent values, one cache line per gather; the row-major kernel ran
+  1.5-1.9x SciPy's ``A @ X`` on one thread for k = 4, 8, the column-major one
+  0.6-1.1x.  A block of k vectors costs 1.5-5x less than k single products.
+* The Gram-Schmidt pass uses two dgemv calls: a row-blocked variant with our
+  own loops (3 reads of V for two passes instead of 4) was 1.4-2x slower than
+  single-threaded OpenBLAS here, being compute bound under load.
+* Thread teams (OpenMP here, OpenBLAS's own for dgemv/dgemm) lose badly when
+  the cores are busy with other processes: a region waits for a descheduled
+  thread.  On a shared machine set ``OMP_NUM_THREADS=1`` (and limit BLAS
+  threads with threadpoolctl), or ``OMP_WAIT_POLICY=passive`` to bound the loss.
 """
 from __future__ import annotations
 
