@@ -15,7 +15,9 @@
 #   contract a*b+c into an FMA: the build uses the baseline x86-64 target).
 #   Static scheduling splits the rows into one block per thread holding an
 #   equal share of the stored entries (a binary search in indptr); dynamic
-#   scheduling hands out fixed row chunks.  The benchmark decides the default.
+#   scheduling hands out fixed row chunks.  Static is the default: in
+#   bench/bench_products.py it was as fast or faster in most cases, and its
+#   partition is fixed (no atomics, the same rows per thread every call).
 # * A fused product: y = A x and alpha = x.y in the same row loop, and a fused
 #   recurrence update w -= alpha v + beta v_prev returning ||w||^2, so the three
 #   term recurrence costs two passes over memory instead of five.  Their sums
@@ -99,7 +101,7 @@ cdef inline Py_ssize_t _nnz_split(const index_t* indptr, Py_ssize_t n_rows,
     if part >= parts:
         return n_rows
     nnz = <int64_t>indptr[n_rows] - <int64_t>indptr[0]
-    # nnz * part fits in int64 for any realistic nnz (< 2**55 with 256 parts).
+    # nnz * part fits in int64 unless nnz * threads exceeds 2**63.
     target = <int64_t>indptr[0] + (nnz * part) // parts
     lo = 0
     hi = n_rows
@@ -132,8 +134,8 @@ cdef void _csr_rows(const index_t* indptr, const index_t* indices,
 cdef double _csr_rows_dot(const index_t* indptr, const index_t* indices,
                           const double* data, const double* x, double* y,
                           Py_ssize_t r0, Py_ssize_t r1) noexcept nogil:
-    # x[i] is in cache when row i is done (the diagonal is a stored entry for
-    # the matrices Lanczos sees), so the inner product costs no extra pass.
+    # x[i] and y[i] are touched in order while the row is done, so the inner
+    # product needs no separate pass over x and y.
     cdef Py_ssize_t i, jj
     cdef double s, acc = 0.0
     for i in range(r0, r1):
