@@ -125,6 +125,10 @@ def resolve_threads(n_threads=None):
 
 
 def _float_vector(x, length, name):
+    # Fast path first: the solver passes float64 contiguous vectors every step.
+    if (type(x) is np.ndarray and x.dtype == np.float64 and x.shape == (length,)
+            and x.flags.c_contiguous):
+        return x
     x = np.asarray(x)
     if np.iscomplexobj(x):
         raise ValueError(f"{name} must be real, got dtype {x.dtype}")
