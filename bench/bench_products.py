@@ -13,6 +13,8 @@ Sections (all by default; pick with --only):
   fused      one Lanczos recurrence step: NumPy ops vs fused kernels
   gs         Gram-Schmidt pass c = V^T w, w -= V c: NumPy vs lanqr (dgemv)
   rotate     V[:, :k] = V[:, :m] Y: NumPy (out of place) vs lanqr (chunked, in place)
+  lanczos    60 Lanczos steps with full reorthogonalization: NumPy vs lanqr kernels,
+             and the share of the time spent in the products
 
 Every timing is the median of ``--repeats`` runs, the variants of a case run
 round-robin so that load changes on a shared machine hit them alike.  Ratios
@@ -418,6 +420,80 @@ def section_rotate(args, report):
     report["rotate"] = rows
 
 
+def section_lanczos(args, report):
+    print("== m Lanczos steps with full reorthogonalization (CGS + DGKS), basis n x m ==")
+    print("   NumPy/SciPy (A @ v, V.T @ w, V @ c, norms) vs lanqr kernels (fused product,")
+    print("   fused update, orthogonalize); 'product share' = m products / whole loop")
+    rows = []
+    m = 60
+    sizes = (316, 1000) if not args.quick else (100, 316)
+    for side in sizes:
+        A = problems.laplacian_grid((side, side))
+        n = A.shape[0]
+        P = CsrProduct(A, n_threads=T)
+        v0 = np.random.default_rng(8).standard_normal(n)
+        V = np.zeros((n, m + 1), order="F")
+
+        def numpy_loop():
+            V[:, 0] = v0 / np.linalg.norm(v0)
+            beta = 0.0
+            for j in range(m):
+                w = A @ V[:, j]
+                alpha = V[:, j] @ w
+                w -= alpha * V[:, j]
+                if j:
+                    w -= beta * V[:, j - 1]
+                before = np.linalg.norm(w)
+                c = V[:, : j + 1].T @ w
+                w -= V[:, : j + 1] @ c
+                nw = np.linalg.norm(w)
+                if nw < DGKS * before:
+                    c = V[:, : j + 1].T @ w
+                    w -= V[:, : j + 1] @ c
+                    nw = np.linalg.norm(w)
+                beta = nw
+                V[:, j + 1] = w / beta
+
+        w = np.empty(n)
+        coef = np.empty(m + 1)
+
+        def lanqr_loop():
+            V[:, 0] = v0 / np.linalg.norm(v0)
+            beta = 0.0
+            for j in range(m):
+                _, alpha = P.matvec_dot(V[:, j], out=w)
+                recurrence_update(w, V[:, j], V[:, j - 1] if j else None, alpha, beta,
+                                  n_threads=T)
+                proj = orthogonalize(V[:, : j + 1], w, coefficients=coef[: j + 1])
+                beta = proj.norm
+                np.multiply(w, 1.0 / beta, out=V[:, j + 1])
+
+        def products_only():
+            for j in range(m):
+                P.matvec(V[:, j], out=w)
+
+        def scipy_products_only():
+            for j in range(m):
+                A @ V[:, j]
+
+        lanqr_loop()
+        basis = V[:, : m + 1]
+        orth = np.abs(basis.T @ basis - np.eye(m + 1)).max()
+        reps = max(3, args.repeats // 5)
+        t = timed({"numpy": numpy_loop, "lanqr": lanqr_loop, "products": products_only,
+                   "scipy products": scipy_products_only}, reps)
+        rows.append([n, m, ms(t["numpy"]), ms(t["lanqr"]), f"{t['numpy'] / t['lanqr']:.2f}",
+                     f"{t['scipy products'] / t['numpy']:.2f}", f"{t['products'] / t['lanqr']:.2f}",
+                     f"{orth:.1e}"])
+    table(["n", "m", "numpy loop ms", "lanqr loop ms", "numpy/lanqr", "product share numpy",
+           "product share lanqr", "max|VtV - I| lanqr"], rows)
+    print(f"[{load()}]\n")
+    report["lanczos"] = rows
+
+
+DGKS = 0.7071067811865476
+
+
 SECTIONS = {
     "setup": section_setup,
     "bandwidth": section_bandwidth,
@@ -427,6 +503,7 @@ SECTIONS = {
     "fused": section_fused,
     "gs": section_gs,
     "rotate": section_rotate,
+    "lanczos": section_lanczos,
 }
 
 
