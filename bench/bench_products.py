@@ -15,6 +15,7 @@ Sections (all by default; pick with --only):
   rotate     V[:, :k] = V[:, :m] Y: NumPy (out of place) vs lanqr (chunked, in place)
   lanczos    60 Lanczos steps with full reorthogonalization: NumPy vs lanqr kernels,
              and the share of the time spent in the products
+  reorder    random geometric graph in stored vs reverse Cuthill-McKee order
 
 Every timing is the median of ``--repeats`` runs, the variants of a case run
 round-robin so that load changes on a shared machine hit them alike.  Ratios
@@ -491,6 +492,32 @@ def section_lanczos(args, report):
     report["lanczos"] = rows
 
 
+def section_reorder(args, report):
+    print("== random geometric graph: stored order vs reverse Cuthill-McKee order (1 thread) ==")
+    from scipy.sparse.csgraph import reverse_cuthill_mckee
+
+    rows = []
+    for nodes in ((10**5, 10**6) if not args.quick else (10**5,)):
+        A = problems.random_geometric_graph(nodes, seed=1)
+        t0 = time.perf_counter()
+        perm = reverse_cuthill_mckee(A, symmetric_mode=True)
+        B = A[perm][:, perm].tocsr()
+        t_reorder = time.perf_counter() - t0
+        x = np.random.default_rng(9).standard_normal(nodes)
+        y = np.empty(nodes)
+        PA, PB = CsrProduct(A, n_threads=1), CsrProduct(B, n_threads=1)
+        t = timed({"scipy": lambda: A @ x, "scipy rcm": lambda: B @ x,
+                   "lanqr": lambda: PA.matvec(x, out=y), "lanqr rcm": lambda: PB.matvec(x, out=y)},
+                  args.repeats)
+        rows.append([nodes, A.nnz, ms(t["scipy"]), ms(t["scipy rcm"]), ms(t["lanqr"]),
+                     ms(t["lanqr rcm"]), f"{t['lanqr'] / t['lanqr rcm']:.2f}",
+                     f"{t_reorder:.2f}", f"{t_reorder / (t['lanqr'] - t['lanqr rcm']):.0f}"])
+    table(["n", "nnz", "scipy ms", "scipy RCM ms", "lanqr ms", "lanqr RCM ms", "RCM gain",
+           "reorder s", "products to repay"], rows)
+    print(f"[{load()}]\n")
+    report["reorder"] = rows
+
+
 DGKS = 0.7071067811865476
 
 
@@ -504,6 +531,7 @@ SECTIONS = {
     "gs": section_gs,
     "rotate": section_rotate,
     "lanczos": section_lanczos,
+    "reorder": section_reorder,
 }
 
 
