@@ -432,11 +432,11 @@ def section_lanczos(args, report):
         A = problems.laplacian_grid((side, side))
         n = A.shape[0]
         P = CsrProduct(A, n_threads=T)
-        v0 = np.random.default_rng(8).standard_normal(n)
+        start = np.random.default_rng(8).standard_normal(n)
         V = np.zeros((n, m + 1), order="F")
 
         def numpy_loop():
-            V[:, 0] = v0 / np.linalg.norm(v0)
+            V[:, 0] = start / np.linalg.norm(start)
             beta = 0.0
             for j in range(m):
                 w = A @ V[:, j]
@@ -459,7 +459,7 @@ def section_lanczos(args, report):
         coef = np.empty(m + 1)
 
         def lanqr_loop():
-            V[:, 0] = v0 / np.linalg.norm(v0)
+            V[:, 0] = start / np.linalg.norm(start)
             beta = 0.0
             for j in range(m):
                 _, alpha = P.matvec_dot(V[:, j], out=w)

@@ -4,7 +4,7 @@ Reference for every product check: SciPy's ``A @ x`` (``csr_matvec`` /
 ``csr_matvecs`` in scipy.sparse._sparsetools), which sums each row
 sequentially over its stored entries; our kernel promises the same order,
 so the comparisons are bitwise.  Gram-Schmidt checks compare with a NumPy
-transcription of the same algorithm and with the orthogonality it must reach.
+version of the same algorithm and with the orthogonality it must reach.
 """
 import os
 import subprocess
