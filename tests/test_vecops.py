@@ -514,3 +514,20 @@ def test_rotate_basis_rejects_bad_input():
         rotate_basis(store, np.ones((2, 3)))
     with pytest.raises(ValueError, match="column-major"):
         rotate_basis(np.ones((10, 5)), np.ones((5, 2)))
+
+
+@pytest.mark.parametrize("seed", range(12))
+def test_random_shapes_bitwise(seed):
+    # Bounded random cases: shapes including empty ones, random densities,
+    # both index dtypes, forced threading; reference: SciPy's product.
+    rng = np.random.default_rng(100 + seed)
+    n_rows, n_cols = (int(v) for v in rng.integers(0, 60, 2))
+    density = float(rng.uniform(0.0, 0.5))
+    A = sp.random(n_rows, n_cols, density=density, random_state=rng, format="csr")
+    A = _with_index_dtype(A, np.int64 if seed % 2 else np.int32)
+    x = rng.standard_normal(n_cols)
+    X = rng.standard_normal((n_cols, 1 + seed % 6))
+    for n_threads in THREADS:
+        product = CsrProduct(A, n_threads=n_threads, serial_below=0)
+        np.testing.assert_array_equal(product.matvec(x), A @ x)
+        np.testing.assert_array_equal(product.matmat(X), A @ X)
