@@ -34,6 +34,10 @@ def default_basis(k):
     return max(4 * k + 10, 30)
 
 
+# Fewest active Lanczos vectors beside k locked pairs: the verification round
+# needs a few steps (VERIFY_MIN_STEPS) before it can certify anything.
+_MIN_ACTIVE = 5
+
 # Below this order (or when the basis would cover a large part of the space)
 # a dense symmetric solver is faster and exact to rounding.
 _DENSE_MAX_ORDER = 200
@@ -75,8 +79,10 @@ def _solve(A, k, selector, tol, basis, max_restarts, seed, start, callback):
     if basis is None:
         basis = default_basis(k)
     basis = int(basis)
-    if basis <= k:
-        raise ValueError(f"basis must exceed k = {k}, got basis = {basis}")
+    if basis < k + _MIN_ACTIVE:
+        raise ValueError(f"basis must be at least k + {_MIN_ACTIVE} = {k + _MIN_ACTIVE} "
+                         f"(room for an active Lanczos basis beside the k locked pairs), "
+                         f"got basis = {basis}")
     if max_restarts is None:
         max_restarts = 1000
     space = VectorSpace(n)
@@ -122,6 +128,12 @@ def _solve(A, k, selector, tol, basis, max_restarts, seed, start, callback):
         matvecs=op.applications, restarts=restarts, history=history,
         elapsed=time.perf_counter() - t0, tol=tol, method=method, info=info)
     info["norm_estimate"] = anorm
+    if result.all_converged and info.get("verified") is False:
+        warnings.warn(
+            f"all {k} pairs converged, but the search for further copies of repeated "
+            f"eigenvalues stopped before it could certify the set (after {restarts} restarts"
+            f"{', basis full of locked pairs' if info.get('exhausted') else ''}); raise "
+            f"max_restarts or basis", NotConvergedWarning, stacklevel=3)
     if not result.all_converged:
         warnings.warn(
             f"{int(np.sum(result.converged))} of {k} eigenpairs converged to tol={tol:g} "
@@ -140,7 +152,8 @@ _DOC_COMMON = """
     tol : float, optional
         Relative tolerance per pair (see Notes).
     basis : int, optional
-        Largest basis size; default ``max(4 k + 10, 30)`` (chosen by measurement).
+        Largest basis size, at least ``k + 5``; default ``max(4 k + 10, 30)``
+        (chosen by measurement).
     max_restarts : int, optional
         Bound on restarts (default 1000).
     seed : int, numpy.random.Generator or None, optional
@@ -170,7 +183,9 @@ _DOC_COMMON = """
     -----
     NotConvergedWarning
         When some pairs did not converge within ``max_restarts``; the result
-        holds the best approximations with ``converged`` False.
+        holds the best approximations with ``converged`` False.  Also when
+        every pair converged but the search for missed copies of repeated
+        eigenvalues could not finish (``result.info["verified"]`` False).
 
     Notes
     -----
@@ -190,7 +205,9 @@ _DOC_COMMON = """
     The method is Lanczos with full reorthogonalization (classical
     Gram-Schmidt, DGKS second pass) and thick restart with locking; after the
     wanted pairs converge, a verification round from a fresh random vector
-    looks for copies of repeated eigenvalues.  Problems of order at most
+    looks for copies of repeated eigenvalues (``result.info["verification"]``:
+    rounds, copies found, steps; ``result.info["verified"]``: whether the
+    round certified the set).  Problems of order at most
     ``max(200, 2 basis)`` are solved densely with ``scipy.linalg.eigh``.
 
     References
