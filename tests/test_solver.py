@@ -246,3 +246,35 @@ def test_unfinished_verification_is_flagged():
     with pytest.warns(lanqr.NotConvergedWarning):
         res = lanqr.lowest(A, 10, basis=16, max_restarts=3, seed=0)
     assert res.info.get("verified") is False or not res.all_converged
+
+
+def test_operator_returning_its_input_or_its_own_buffer():
+    # A matvec may return its argument (the identity) or reuse one output
+    # buffer; the solver must not update those arrays in place.  Exact facts:
+    # the identity has eigenvalue 1 (n-fold); diag(1..n) has eigenvalues 1..n.
+    n = 600
+
+    class Identity:
+        shape = (n, n)
+
+        def matvec(self, x):
+            return x
+
+    res = lanqr.lowest(Identity(), 3, seed=0)
+    np.testing.assert_allclose(res.values, 1.0, rtol=1e-14)
+    assert np.linalg.norm(res.vectors.T @ res.vectors - np.eye(3)) <= 1e-10
+
+    d = np.arange(1.0, n + 1)
+
+    class Buffered:
+        shape = (n, n)
+
+        def __init__(self):
+            self.buf = np.empty(n)
+
+        def matvec(self, x):
+            np.multiply(d, x, out=self.buf)
+            return self.buf
+
+    res = lanqr.lowest(Buffered(), 3, tol=1e-10, seed=0)
+    np.testing.assert_allclose(res.values, [1.0, 2.0, 3.0], rtol=1e-10)
