@@ -68,6 +68,12 @@ def cases(quick):
     }
 
 
+# Per-case time caps (seconds) for the full run: the graph Laplacian's lowest
+# 10 lie in a cluster at 0 (one per connected component) below a tiny gap,
+# which neither method resolves quickly without a spectral transformation.
+CASE_CAPS = {"rgg": 300.0}
+
+
 class Counting(spla.LinearOperator):
     """A sparse matrix as a LinearOperator that counts vectors applied."""
 
@@ -129,9 +135,9 @@ def run_capped(side, A, k, tol, cap, memory=False):
     return ("timeout", cap)
 
 
-def relative_residuals(A, vals, vecs, tol):
-    """||A x - t x|| / max(|t|, floor), the definition lanqr documents."""
-    anorm = max(np.max(np.abs(vals)), 1e-300)
+def relative_residuals(A, vals, vecs, tol, anorm):
+    """||A x - t x|| / max(|t|, floor), the definition lanqr documents
+    (with the Gershgorin bound for ||A||, the same for both sides)."""
     floor = 100 * np.finfo(float).eps * anorm / tol
     R = A @ vecs - vecs * vals
     return np.linalg.norm(R, axis=0) / np.maximum(np.abs(vals), floor)
@@ -158,7 +164,8 @@ def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--quick", action="store_true", help="smaller sizes")
     ap.add_argument("--case", action="append", help="run only these cases (repeatable)")
-    ap.add_argument("--repeats", type=int, default=3)
+    ap.add_argument("--repeats", type=int, default=3,
+                    help="timed repeats (median); the first, extra run traces memory")
     ap.add_argument("--tol", type=float, default=1e-8)
     ap.add_argument("--cap", type=float, default=None, help="seconds per solve")
     ap.add_argument("--threads", type=int, default=1,
@@ -194,24 +201,29 @@ def main(argv=None):
         else:
             exact = exact_fn(k) if exact_fn else None
         row = {"case": name, "n": A.shape[0], "k": k}
+        case_cap = min(cap, CASE_CAPS.get(name, cap)) if not args.quick else cap
         for side in sides:
-            times, out = [], None
-            for _ in range(args.repeats):
-                msg = run_capped(side, A, k, args.tol, cap)
+            # The first run traces memory (tracemalloc); with more than one
+            # repeat the wall time is the median of the other, untraced runs.
+            times, out, peak = [], None, float("nan")
+            for rep in range(max(args.repeats, 1) + (1 if args.repeats > 1 else 0)):
+                traced = rep == 0
+                msg = run_capped(side, A, k, args.tol, case_cap, memory=traced)
                 if msg[0] != "ok":
                     out = msg
                     break
-                times.append(msg[1])
+                if traced:
+                    peak = msg[5]
+                if not traced or args.repeats <= 1:
+                    times.append(msg[1])
                 out = msg
             if out[0] != "ok":
-                what = f"did not finish in {cap:g} s" if out[0] == "timeout" else out[1]
+                what = f"did not finish in {case_cap:g} s" if out[0] == "timeout" else out[1]
                 print(f"  {side:14s} {what}", flush=True)
                 row[side] = None
                 continue
-            mem = run_capped(side, A, k, args.tol, cap, memory=True)
-            peak = mem[5] if mem[0] == "ok" else float("nan")
             _, _, vals, vecs, count, _ = out
-            res = relative_residuals(A, vals, vecs, args.tol)
+            res = relative_residuals(A, vals, vecs, args.tol, anorm)
             err = max_error(vals, exact, anorm)
             t = statistics.median(times)
             row[side] = dict(time=t, matvecs=count, res=float(np.max(res)), err=err,
