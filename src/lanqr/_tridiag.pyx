@@ -29,7 +29,7 @@
 #   past it the cores return 1 and leave every converged eigenvalue isolated
 #   (zero couplings on both sides), so the wrapper can count them.
 from libc.math cimport sqrt, fabs, hypot, copysign, ldexp, frexp
-from libc.stdlib cimport malloc, free
+from libc.stdlib cimport malloc, free, qsort
 from libc.string cimport memcpy, memset
 
 import numpy as np
@@ -619,13 +619,70 @@ cdef void _permute_columns(double* z, Py_ssize_t ldz, Py_ssize_t nrows,
             k = nxt
 
 
-cdef Py_ssize_t _count_isolated(const double* e, Py_ssize_t n) noexcept nogil:
-    """How many diagonal entries have zero couplings on both sides."""
-    cdef Py_ssize_t i, count = 0
-    for i in range(n):
-        if (i == 0 or e[i - 1] == 0.0) and (i == n - 1 or e[i] == 0.0):
-            count += 1
-    return count
+cdef struct ValueIndex:
+    double value
+    Py_ssize_t index
+
+
+cdef int _cmp_value_index(const void* pa, const void* pb) noexcept nogil:
+    cdef const ValueIndex* a = <const ValueIndex*> pa
+    cdef const ValueIndex* b = <const ValueIndex*> pb
+    if a.value < b.value:
+        return -1
+    if a.value > b.value:
+        return 1
+    # ties keep their order, so the result does not depend on qsort's choices
+    return (a.index > b.index) - (a.index < b.index)
+
+
+cdef int _cmp_double(const void* pa, const void* pb) noexcept nogil:
+    cdef double a = (<const double*> pa)[0]
+    cdef double b = (<const double*> pb)[0]
+    return (a > b) - (a < b)
+
+
+cdef inline bint _ascending(const double* w, Py_ssize_t n) noexcept nogil:
+    cdef Py_ssize_t i
+    for i in range(n - 1):
+        if w[i] > w[i + 1]:
+            return False
+    return True
+
+
+cdef int _sort_pairs(double* w, double* z, Py_ssize_t ldz, Py_ssize_t nrows,
+                     Py_ssize_t n) noexcept nogil:
+    """Sort w ascending and permute the columns of Z to match; -3 if no memory."""
+    cdef Py_ssize_t j
+    cdef ValueIndex* pairs
+    cdef Py_ssize_t* order
+    cdef char* seen
+    cdef double* tmp
+    if _ascending(w, n):
+        return 0
+    pairs = <ValueIndex*> malloc(n * sizeof(ValueIndex))
+    order = <Py_ssize_t*> malloc(n * sizeof(Py_ssize_t))
+    seen = <char*> malloc(n)
+    tmp = <double*> malloc((nrows + 1) * sizeof(double))
+    if pairs == NULL or order == NULL or seen == NULL or tmp == NULL:
+        free(pairs)
+        free(order)
+        free(seen)
+        free(tmp)
+        return -3
+    for j in range(n):
+        pairs[j].value = w[j]
+        pairs[j].index = j
+    qsort(pairs, n, sizeof(ValueIndex), _cmp_value_index)
+    for j in range(n):
+        w[j] = pairs[j].value
+        order[j] = pairs[j].index
+    if nrows > 0:
+        _permute_columns(z, ldz, nrows, order, n, seen, tmp)
+    free(pairs)
+    free(order)
+    free(seen)
+    free(tmp)
+    return 0
 
 
 def _isolated_mask(double[::1] e_work, Py_ssize_t n):
@@ -664,8 +721,8 @@ def values(const double[::1] d, const double[::1] e, Py_ssize_t max_sweeps):
                 memcpy(&ev[0], &e[0], (n - 1) * sizeof(double))
             ev[n - 1] = 0.0
             status = _values_core(&wv[0], &ev[0], n, max_sweeps, &sweeps)
-    if status == 0:
-        w.sort()
+            if status == 0 and not _ascending(&wv[0], n):
+                qsort(&wv[0], n, sizeof(double), _cmp_double)
     return status, w, ework, sweeps
 
 
@@ -724,34 +781,8 @@ def eigen(const double[::1] d, const double[::1] e, const Py_ssize_t[::1] rows,
                                        &sweeps)
             free(work)
             free(ends)
+            if status == 0:
+                status = _sort_pairs(&wv[0], zp, nrows, nrows, n)
     if status == -3:
-        raise MemoryError("tridiagonal kernel: no memory for the rotation buffers")
-    if status == 0:
-        order = np.argsort(w)
-        w = w[order]
-        _apply_order(z, order, nrows, n)
+        raise MemoryError("tridiagonal kernel: out of memory for work arrays")
     return status, w, z, ework, sweeps
-
-
-cdef void _apply_order_c(double* zp, Py_ssize_t nrows, const Py_ssize_t* op,
-                         Py_ssize_t n, char* seen, double* tmp) noexcept nogil:
-    _permute_columns(zp, nrows, nrows, op, n, seen, tmp)
-
-
-def _apply_order(z, order, Py_ssize_t nrows, Py_ssize_t n):
-    cdef const Py_ssize_t[::1] ov = order
-    cdef double[::1, :] zv = z
-    cdef char* seen
-    cdef double* tmp
-    if nrows == 0 or n < 2:
-        return
-    seen = <char*> malloc(n)
-    tmp = <double*> malloc(nrows * sizeof(double))
-    if seen == NULL or tmp == NULL:
-        free(seen)
-        free(tmp)
-        raise MemoryError("tridiagonal kernel: no memory to sort eigenvectors")
-    with nogil:
-        _apply_order_c(&zv[0, 0], nrows, &ov[0], n, seen, tmp)
-    free(seen)
-    free(tmp)
