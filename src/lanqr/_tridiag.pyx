@@ -20,11 +20,17 @@
 # * Shift: Wilkinson's, the eigenvalue of the leading 2x2 nearer d_l.  It enters
 #   only through the first rotation of the sweep (implicit Francis step).
 # * Values only: the square-root-free Pal-Walker-Kahan sweep on e_i^2.
-# * Vectors: the sweep stores its cosines and sines; they are then applied to Z
-#   (column-major, so a column pair is contiguous) one block of rows at a time,
-#   each row carrying its running entry through the whole chain of rotations.
-#   Every entry of Z is then read and written once per sweep, and the inner loop
-#   over the rows of a block vectorises.
+# * Vectors: Z is column-major, so a column pair is contiguous.  Each sweep
+#   stores its cosines and sines; after SWEEPS_PER_BATCH sweeps they are all
+#   applied to Z one block of rows at a time (rows transform independently:
+#   Z <- Z Q_1 Q_2 ...), each row carrying its running entry along the chain of
+#   rotations in a register.  Every entry of Z is then loaded and stored once
+#   per sweep, from cache, and Z streams from memory once per batch.  Groups of
+#   16 rows take an AVX2 + FMA chain when the CPU has it (checked at import),
+#   other rows the portable Cython loops.
+# * Chosen rows only (rows=[-1], [0], [0, -1]): up to FEW_ROWS kept rows are
+#   rotated inside the sweep itself, O(len(rows)) per rotation, and the full
+#   matrix is never formed.
 # * Iteration limit: ``max_sweeps`` sweeps in total (the caller passes ~30 n);
 #   past it the cores return 1 and leave every converged eigenvalue isolated
 #   (zero couplings on both sides), so the wrapper can count them.
@@ -121,12 +127,9 @@ cdef extern from *:
 cdef bint CPU_AVX2_FMA = lanqr_cpu_has_avx2_fma()
 
 
-cdef inline bint _finite(double x) noexcept nogil:
-    # x - x is 0 for finite x and NaN for +-Inf and NaN.
-    return (x - x) == 0.0
-
-
 cdef int _scan_finite(const double* x, Py_ssize_t n) noexcept nogil:
+    # x - x is exactly 0 for finite x and NaN for +-Inf and NaN, and NaN
+    # persists through the sum: one branch-free pass.
     cdef Py_ssize_t i
     cdef double acc = 0.0
     for i in range(n):
