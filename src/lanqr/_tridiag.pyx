@@ -20,16 +20,22 @@
 # * Shift: Wilkinson's, the eigenvalue of the leading 2x2 nearer d_l.  It enters
 #   only through the first rotation of the sweep (implicit Francis step).
 # * Values only: the square-root-free Pal-Walker-Kahan sweep on e_i^2.
-# * Vectors: the sweep stores its cosines and sines; they are then applied to Z
-#   (column-major, so a column pair is contiguous) one block of rows at a time,
-#   each row carrying its running entry through the whole chain of rotations.
-#   Every entry of Z is then read and written once per sweep, and the inner loop
-#   over the rows of a block vectorises.
+# * Vectors: Z is column-major, so a column pair is contiguous.  Each sweep
+#   stores its cosines and sines; after SWEEPS_PER_BATCH sweeps they are all
+#   applied to Z one block of rows at a time (rows transform independently:
+#   Z <- Z Q_1 Q_2 ...), each row carrying its running entry along the chain of
+#   rotations in a register.  Every entry of Z is then loaded and stored once
+#   per sweep, from cache, and Z streams from memory once per batch.  Groups of
+#   16 rows take an AVX2 + FMA chain when the CPU has it (checked at import),
+#   other rows the portable Cython loops.
+# * Chosen rows only (rows=[-1], [0], [0, -1]): up to FEW_ROWS kept rows are
+#   rotated inside the sweep itself, O(len(rows)) per rotation, and the full
+#   matrix is never formed.
 # * Iteration limit: ``max_sweeps`` sweeps in total (the caller passes ~30 n);
 #   past it the cores return 1 and leave every converged eigenvalue isolated
 #   (zero couplings on both sides), so the wrapper can count them.
 from libc.math cimport sqrt, fabs, hypot, copysign, ldexp, frexp
-from libc.stdlib cimport malloc, free
+from libc.stdlib cimport malloc, free, qsort
 from libc.string cimport memcpy, memset
 
 import numpy as np
@@ -46,23 +52,84 @@ cdef double SSFMAX = sqrt(SAFMAX) / 3.0
 cdef double SSFMIN = sqrt(SAFMIN) / EPS2
 
 # Rotations of SWEEPS_PER_BATCH sweeps are stored, then applied to Z one block
-# of ROW_BLOCK rows at a time: 8 rows x n columns (64 KiB at n = 1000) stay in
-# L2 while all stored sweeps pass over them, so Z streams from memory once per
-# batch instead of once per sweep.  Both chosen by measurement
-# (bench/bench_tridiagonal.py --tune): at n = 2000, 8 rows and 32 sweeps ran in
-# 0.28x 'stev' time, 64 rows and 1 sweep (no batching) in 1.6x.
-cdef Py_ssize_t ROW_BLOCK = 8
+# of ROW_BLOCK rows at a time: 16 rows x n columns (128 KiB at n = 1000) stay
+# in L2 while all stored sweeps pass over them, so Z streams from memory once
+# per batch instead of once per sweep.  Both chosen by measurement
+# (bench/bench_tridiagonal.py --tune, CPU time relative to LAPACK 'stev'):
+# n = 2000: 16 rows / 32 sweeps 0.24x, 16 rows / 1 sweep (no batching) 1.3x;
+# 8 rows (portable loops only, no AVX2 chain) / 32 sweeps 0.49x.
+cdef Py_ssize_t ROW_BLOCK = 16
 cdef Py_ssize_t SWEEPS_PER_BATCH = 32
 # Up to this many kept rows are rotated inside the sweep itself.
 cdef Py_ssize_t FEW_ROWS = 4
 
 
-cdef inline bint _finite(double x) noexcept nogil:
-    # x - x is 0 for finite x and NaN for +-Inf and NaN.
-    return (x - x) == 0.0
+# One optional piece of C: a 16-row rotation chain with AVX2 + FMA, compiled
+# for that instruction set only (GCC/Clang ``target`` attribute) and used only
+# when the CPU reports both features at run time.  It computes exactly what
+# _chain8 does, two rows blocks at a time, with fused multiply-adds; every other
+# machine and compiler takes the portable Cython path.
+cdef extern from *:
+    """
+    #if (defined(__GNUC__) || defined(__clang__)) && defined(__x86_64__)
+    #include <immintrin.h>
+    __attribute__((target("avx2,fma")))
+    static void lanqr_chain16_avx2(double *z, Py_ssize_t ldz, const double *cs,
+                                   const double *sn, Py_ssize_t lo, Py_ssize_t m)
+    {
+        double *zi = z + m * ldz, *zi1;
+        __m256d r0 = _mm256_loadu_pd(zi), r1 = _mm256_loadu_pd(zi + 4);
+        __m256d r2 = _mm256_loadu_pd(zi + 8), r3 = _mm256_loadu_pd(zi + 12);
+        __m256d c, s, a0, a1, a2, a3;
+        Py_ssize_t i;
+        for (i = m - 1; i >= lo; --i) {
+            c = _mm256_broadcast_sd(cs + i);
+            s = _mm256_broadcast_sd(sn + i);
+            zi1 = zi;
+            zi -= ldz;
+            a0 = _mm256_loadu_pd(zi);
+            a1 = _mm256_loadu_pd(zi + 4);
+            a2 = _mm256_loadu_pd(zi + 8);
+            a3 = _mm256_loadu_pd(zi + 12);
+            _mm256_storeu_pd(zi1, _mm256_fmadd_pd(s, a0, _mm256_mul_pd(c, r0)));
+            _mm256_storeu_pd(zi1 + 4, _mm256_fmadd_pd(s, a1, _mm256_mul_pd(c, r1)));
+            _mm256_storeu_pd(zi1 + 8, _mm256_fmadd_pd(s, a2, _mm256_mul_pd(c, r2)));
+            _mm256_storeu_pd(zi1 + 12, _mm256_fmadd_pd(s, a3, _mm256_mul_pd(c, r3)));
+            r0 = _mm256_fmsub_pd(c, a0, _mm256_mul_pd(s, r0));
+            r1 = _mm256_fmsub_pd(c, a1, _mm256_mul_pd(s, r1));
+            r2 = _mm256_fmsub_pd(c, a2, _mm256_mul_pd(s, r2));
+            r3 = _mm256_fmsub_pd(c, a3, _mm256_mul_pd(s, r3));
+        }
+        _mm256_storeu_pd(zi, r0);
+        _mm256_storeu_pd(zi + 4, r1);
+        _mm256_storeu_pd(zi + 8, r2);
+        _mm256_storeu_pd(zi + 12, r3);
+    }
+    static int lanqr_cpu_has_avx2_fma(void)
+    {
+        __builtin_cpu_init();
+        return __builtin_cpu_supports("avx2") && __builtin_cpu_supports("fma");
+    }
+    #else
+    static void lanqr_chain16_avx2(double *z, Py_ssize_t ldz, const double *cs,
+                                   const double *sn, Py_ssize_t lo, Py_ssize_t m)
+    {
+        (void)z; (void)ldz; (void)cs; (void)sn; (void)lo; (void)m;
+    }
+    static int lanqr_cpu_has_avx2_fma(void) { return 0; }
+    #endif
+    """
+    void lanqr_chain16_avx2(double* z, Py_ssize_t ldz, const double* cs,
+                            const double* sn, Py_ssize_t lo, Py_ssize_t m) noexcept nogil
+    int lanqr_cpu_has_avx2_fma() noexcept nogil
+
+# Read once at import: a property of the machine, not mutable state.
+cdef bint CPU_AVX2_FMA = lanqr_cpu_has_avx2_fma()
 
 
 cdef int _scan_finite(const double* x, Py_ssize_t n) noexcept nogil:
+    # x - x is exactly 0 for finite x and NaN for +-Inf and NaN, and NaN
+    # persists through the sum: one branch-free pass.
     cdef Py_ssize_t i
     cdef double acc = 0.0
     for i in range(n):
@@ -293,6 +360,7 @@ cdef struct SweepBatch:
     Py_ssize_t capacity
     Py_ssize_t n
     Py_ssize_t row_block   # rows of Z that take all stored sweeps together
+    bint simd              # use the AVX2 + FMA chain for groups of 16 rows
 
 
 cdef inline void _chain8(double* z, Py_ssize_t ldz, const double* cs,
@@ -377,6 +445,10 @@ cdef void _flush_batch(SweepBatch* batch, double* z, Py_ssize_t ldz,
             cs = batch.cs + j * n
             sn = batch.sn + j * n
             k = 0
+            if batch.simd:
+                while k + 16 <= rb:
+                    lanqr_chain16_avx2(z + r0 + k, ldz, cs, sn, lo, m)
+                    k += 16
             while k + 8 <= rb:
                 _chain8(z + r0 + k, ldz, cs, sn, lo, m)
                 k += 8
@@ -619,13 +691,70 @@ cdef void _permute_columns(double* z, Py_ssize_t ldz, Py_ssize_t nrows,
             k = nxt
 
 
-cdef Py_ssize_t _count_isolated(const double* e, Py_ssize_t n) noexcept nogil:
-    """How many diagonal entries have zero couplings on both sides."""
-    cdef Py_ssize_t i, count = 0
-    for i in range(n):
-        if (i == 0 or e[i - 1] == 0.0) and (i == n - 1 or e[i] == 0.0):
-            count += 1
-    return count
+cdef struct ValueIndex:
+    double value
+    Py_ssize_t index
+
+
+cdef int _cmp_value_index(const void* pa, const void* pb) noexcept nogil:
+    cdef const ValueIndex* a = <const ValueIndex*> pa
+    cdef const ValueIndex* b = <const ValueIndex*> pb
+    if a.value < b.value:
+        return -1
+    if a.value > b.value:
+        return 1
+    # ties keep their order, so the result does not depend on qsort's choices
+    return (a.index > b.index) - (a.index < b.index)
+
+
+cdef int _cmp_double(const void* pa, const void* pb) noexcept nogil:
+    cdef double a = (<const double*> pa)[0]
+    cdef double b = (<const double*> pb)[0]
+    return (a > b) - (a < b)
+
+
+cdef inline bint _ascending(const double* w, Py_ssize_t n) noexcept nogil:
+    cdef Py_ssize_t i
+    for i in range(n - 1):
+        if w[i] > w[i + 1]:
+            return False
+    return True
+
+
+cdef int _sort_pairs(double* w, double* z, Py_ssize_t ldz, Py_ssize_t nrows,
+                     Py_ssize_t n) noexcept nogil:
+    """Sort w ascending and permute the columns of Z to match; -3 if no memory."""
+    cdef Py_ssize_t j
+    cdef ValueIndex* pairs
+    cdef Py_ssize_t* order
+    cdef char* seen
+    cdef double* tmp
+    if _ascending(w, n):
+        return 0
+    pairs = <ValueIndex*> malloc(n * sizeof(ValueIndex))
+    order = <Py_ssize_t*> malloc(n * sizeof(Py_ssize_t))
+    seen = <char*> malloc(n)
+    tmp = <double*> malloc((nrows + 1) * sizeof(double))
+    if pairs == NULL or order == NULL or seen == NULL or tmp == NULL:
+        free(pairs)
+        free(order)
+        free(seen)
+        free(tmp)
+        return -3
+    for j in range(n):
+        pairs[j].value = w[j]
+        pairs[j].index = j
+    qsort(pairs, n, sizeof(ValueIndex), _cmp_value_index)
+    for j in range(n):
+        w[j] = pairs[j].value
+        order[j] = pairs[j].index
+    if nrows > 0:
+        _permute_columns(z, ldz, nrows, order, n, seen, tmp)
+    free(pairs)
+    free(order)
+    free(seen)
+    free(tmp)
+    return 0
 
 
 def _isolated_mask(double[::1] e_work, Py_ssize_t n):
@@ -664,17 +793,19 @@ def values(const double[::1] d, const double[::1] e, Py_ssize_t max_sweeps):
                 memcpy(&ev[0], &e[0], (n - 1) * sizeof(double))
             ev[n - 1] = 0.0
             status = _values_core(&wv[0], &ev[0], n, max_sweeps, &sweeps)
-    if status == 0:
-        w.sort()
+            if status == 0 and not _ascending(&wv[0], n):
+                qsort(&wv[0], n, sizeof(double), _cmp_double)
     return status, w, ework, sweeps
 
 
 def eigen(const double[::1] d, const double[::1] e, const Py_ssize_t[::1] rows,
           Py_ssize_t max_sweeps, Py_ssize_t row_block=ROW_BLOCK,
-          Py_ssize_t sweeps_per_batch=SWEEPS_PER_BATCH):
+          Py_ssize_t sweeps_per_batch=SWEEPS_PER_BATCH, bint simd=True):
     """Return (status, w, z, e_work, sweeps); z is len(rows) x n (all rows if rows is None).
 
     Row indices must already be normalised to 0..n-1.  Status as in ``values``.
+    ``row_block``, ``sweeps_per_batch`` and ``simd=False`` (force the portable
+    rotation loops) exist for tuning and testing.
     """
     cdef Py_ssize_t n = d.shape[0]
     cdef Py_ssize_t nrows = n if rows is None else rows.shape[0]
@@ -707,6 +838,7 @@ def eigen(const double[::1] d, const double[::1] e, const Py_ssize_t[::1] rows,
                 zp[(rows[k] if not full else k) * nrows + k] = 1.0
             cap = sweeps_per_batch if nrows > FEW_ROWS else 0
             batch.row_block = row_block
+            batch.simd = simd and CPU_AVX2_FMA
             batch.n = n
             batch.capacity = cap
             batch.count = 0
@@ -724,34 +856,13 @@ def eigen(const double[::1] d, const double[::1] e, const Py_ssize_t[::1] rows,
                                        &sweeps)
             free(work)
             free(ends)
+            if status == 0:
+                status = _sort_pairs(&wv[0], zp, nrows, nrows, n)
     if status == -3:
-        raise MemoryError("tridiagonal kernel: no memory for the rotation buffers")
-    if status == 0:
-        order = np.argsort(w)
-        w = w[order]
-        _apply_order(z, order, nrows, n)
+        raise MemoryError("tridiagonal kernel: out of memory for work arrays")
     return status, w, z, ework, sweeps
 
 
-cdef void _apply_order_c(double* zp, Py_ssize_t nrows, const Py_ssize_t* op,
-                         Py_ssize_t n, char* seen, double* tmp) noexcept nogil:
-    _permute_columns(zp, nrows, nrows, op, n, seen, tmp)
-
-
-def _apply_order(z, order, Py_ssize_t nrows, Py_ssize_t n):
-    cdef const Py_ssize_t[::1] ov = order
-    cdef double[::1, :] zv = z
-    cdef char* seen
-    cdef double* tmp
-    if nrows == 0 or n < 2:
-        return
-    seen = <char*> malloc(n)
-    tmp = <double*> malloc(nrows * sizeof(double))
-    if seen == NULL or tmp == NULL:
-        free(seen)
-        free(tmp)
-        raise MemoryError("tridiagonal kernel: no memory to sort eigenvectors")
-    with nogil:
-        _apply_order_c(&zv[0, 0], nrows, &ov[0], n, seen, tmp)
-    free(seen)
-    free(tmp)
+def simd_available():
+    """True when the AVX2 + FMA rotation chain is compiled in and the CPU has it."""
+    return bool(CPU_AVX2_FMA)

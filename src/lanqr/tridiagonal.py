@@ -73,6 +73,12 @@ def _check_pair(d, e):
 
 
 def _check_rows(rows, n):
+    if type(rows) is list and len(rows) == 1 and type(rows[0]) is int:
+        # Fast path for the solver's rows=[-1] at every Lanczos step.
+        r = rows[0]
+        if r < -n or r >= n:
+            raise ValueError(f"row index {r} out of range for a matrix of order {n}")
+        return np.array((r + n if r < 0 else r,), dtype=_INTP)
     idx = np.asarray(rows)
     if idx.ndim != 1:
         raise ValueError(f"rows must be a 1-D sequence of row indices, got shape {idx.shape}")
