@@ -95,8 +95,10 @@ class ShiftInvert(spla.LinearOperator):
         How ``A - shift M`` was factored: ``kind`` ("sparse LU", "dense
         Cholesky", "dense LU" or "user solver"), ``seconds``, ``nnz_matrix``,
         ``nnz_factors`` and ``fill`` (= nnz_factors / nnz_matrix) for the sparse
-        LU, and ``min_pivot_ratio`` (smallest pivot magnitude over
-        ``||A - shift M||_1``).
+        LU, ``min_pivot_ratio`` (smallest pivot magnitude over
+        ``||A - shift M||_1``) and ``negative_pivots``: the number of
+        eigenvalues below the shift (Sylvester) when the factorization used
+        diagonal pivots only, else None.
     applications : int
         How many vectors the operator has been applied to (a block of k counts k).
 
@@ -189,9 +191,13 @@ class ShiftInvert(spla.LinearOperator):
             raise SingularShiftError(self.shift, f"smallest LU pivot {pivots.min():.2e} against "
                                                  f"||A - shift M||_1 = {norm1:.3g}")
         nnz_factors = int(lu.L.nnz + lu.U.nnz - C.shape[0])
+        # With diagonal pivots only (row order = column order) U = D L^T, and the
+        # signs of its diagonal give the inertia at the shift for free.
+        symmetric = bool(np.array_equal(lu.perm_r, lu.perm_c))
+        negative = int(np.count_nonzero(lu.U.diagonal() < 0.0)) if symmetric else None
         self.factorization = {"kind": "sparse LU", "nnz_matrix": int(C.nnz),
                               "nnz_factors": nnz_factors, "fill": nnz_factors / max(int(C.nnz), 1),
-                              "min_pivot_ratio": ratio}
+                              "min_pivot_ratio": ratio, "negative_pivots": negative}
         self._solve = lu.solve
 
     def _factor_dense(self, A, M):
@@ -205,6 +211,7 @@ class ShiftInvert(spla.LinearOperator):
             factor = scipy.linalg.cho_factor(C, lower=False, check_finite=False)
             pivots = np.diag(factor[0]) ** 2
             kind = "dense Cholesky"
+            negative = 0
             solve = lambda b: scipy.linalg.cho_solve(factor, b, check_finite=False)
         except np.linalg.LinAlgError:
             # An exactly zero pivot is reported below as a SingularShiftError,
@@ -214,12 +221,13 @@ class ShiftInvert(spla.LinearOperator):
                 lu, piv = scipy.linalg.lu_factor(C, check_finite=False)
             pivots = np.abs(np.diag(lu))
             kind = "dense LU"
+            negative = None
             solve = lambda b: scipy.linalg.lu_solve((lu, piv), b, check_finite=False)
         if C.shape[0] and (not np.all(np.isfinite(pivots)) or norm1 == 0.0 or pivots.min() <= floor):
             raise SingularShiftError(self.shift, f"smallest pivot {pivots.min():.2e} against "
                                                  f"||A - shift M||_1 = {norm1:.3g}")
         ratio = float(pivots.min()) / norm1 if C.shape[0] and norm1 > 0 else 0.0
-        self.factorization = {"kind": kind, "min_pivot_ratio": ratio}
+        self.factorization = {"kind": kind, "min_pivot_ratio": ratio, "negative_pivots": negative}
         self._solve = solve
 
     # -- application --------------------------------------------------------
