@@ -219,3 +219,14 @@ def test_count_check_reports_a_cut_cluster():
     assert ok.ok
     cut = _top_count_check(K, M, exact[[0, 1, 2, 4]], 4, 1e-8, anorm, mnorm, "test")
     assert not cut.ok and cut.count == 5 and "cut" in cut.message
+
+
+def test_double_eigenvalues_lowest_with_count_recovery():
+    # reference-values.md §4: 2-D Laplacian N = 40, double eigenvalues (j,k)/(k,j).
+    # One Krylov space holds one direction per eigenspace; the inertia count must
+    # catch a skipped copy and the solver must then find it.
+    A = problems.laplacian_grid((40, 40))
+    res = lanqr.lowest(A, 10, shift=0.0, seed=14)
+    exact = problems.laplacian_grid_values((40, 40), 10)
+    assert np.allclose(res.values, exact, rtol=1e-8, atol=0)
+    assert res.count_check.ok and res.all_converged
