@@ -230,3 +230,12 @@ def test_double_eigenvalues_lowest_with_count_recovery():
     exact = problems.laplacian_grid_values((40, 40), 10)
     assert np.allclose(res.values, exact, rtol=1e-8, atol=0)
     assert res.count_check.ok and res.all_converged
+
+
+def test_nearest_small_problem_uses_dense_path():
+    # Small order: LAPACK directly; closed form §4 as the reference.
+    A = problems.laplacian_1d(20)
+    res = lanqr.nearest(A, 3, 1.0, seed=0)
+    exact = problems.laplacian_1d_values(20)
+    expected = np.sort(exact[np.argsort(np.abs(exact - 1.0))[:3]])
+    assert np.allclose(res.values, expected, atol=1e-13, rtol=0) and "dense" in res.method

@@ -466,7 +466,7 @@ def nearest(A, k, target, *, M=None, shift_solver=None, tol=1e-8, basis=None, ma
     >>> from lanqr.problems import laplacian_1d
     >>> res = lanqr.nearest(laplacian_1d(500), 2, 2.0, seed=0)
     >>> res.values.round(6)
-    array([1.987477, 2.012523])
+    array([1.993729, 2.006271])
     """
     t0 = time.perf_counter()
     start = _validate(k, tol, basis, max_restarts, start)
@@ -482,9 +482,17 @@ def nearest(A, k, target, *, M=None, shift_solver=None, tol=1e-8, basis=None, ma
     anorm, mnorm = _norm1(A), _norm1(M)
     info = {"target": target, "norm_estimates": (anorm, mnorm)}
     explicit = sp.issparse(A) or isinstance(A, np.ndarray)
+    if n <= max(basis + 1, 3 * k) and explicit and shift_solver is None and not _semidefinite(M):
+        # Too small for a restarted Krylov basis: all pairs densely, then the nearest k.
+        vals, vecs = _dense_generalized(A, M, n, "lowest")
+        pick = np.argsort(np.abs(vals - target), kind="stable")[:k]
+        vals, vecs = vals[pick], vecs[:, pick]
+        res = _residuals(A, M, vals, vecs, anorm, mnorm)
+        return _finish(vals, vecs, res, tol, n, 0, [], t0, "dense (scipy.linalg.eigh)", info)
     if n <= basis + 1:
-        raise ValueError(f"nearest needs n > basis + 1; n = {n}, basis = {basis}: "
-                         f"use scipy.linalg.eigh for so small a problem")
+        basis = n - 2
+        if basis <= k:
+            raise ValueError(f"k = {k} is too large for n = {n} with a user solver")
     S, nudges = _build_shift_invert(A, target, M, shift_solver, nudge=True)
     if nudges:
         info["shift_nudges"] = nudges
