@@ -60,6 +60,10 @@ def test_factorization_statistics_recorded():
     assert info["kind"] == "sparse LU"
     assert info["nnz_factors"] >= A.nnz - A.shape[0] and info["fill"] >= 1.0
     assert info["seconds"] >= 0.0 and 0.0 < info["min_pivot_ratio"] <= 1.0
+    assert info["options"] == "symmetric mode" and info["backward_error"] < 1e-14
+    # Positive definite: diagonal pivots only, so the inertia at the shift is known (0 below 0.1,
+    # since the lowest eigenvalue is 8 sin^2(pi/82) = 0.0117... < 0.1 -> count from §4 closed form).
+    assert info["negative_pivots"] == int(np.sum(problems.laplacian_grid_values((40, 40)) < 0.1))
     D = ShiftInvert(A.toarray(), 0.0)
     assert D.factorization["kind"] == "dense Cholesky"   # shift below the spectrum
     D = ShiftInvert(A.toarray(), 1.0)
