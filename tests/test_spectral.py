@@ -239,3 +239,22 @@ def test_nearest_small_problem_uses_dense_path():
     exact = problems.laplacian_1d_values(20)
     expected = np.sort(exact[np.argsort(np.abs(exact - 1.0))[:3]])
     assert np.allclose(res.values, expected, atol=1e-13, rtol=0) and "dense" in res.method
+
+
+def test_generalized_bad_input():
+    K, M = problems.string_pair(300)
+    with pytest.raises(ValueError, match="not symmetric"):
+        lanqr.lowest(K, 3, M=sp.csr_matrix(np.triu(M.toarray())))
+    with pytest.raises(ValueError, match="order"):
+        lanqr.lowest(K, 3, M=sp.identity(299))
+    with pytest.raises(ValueError, match="k must"):
+        lanqr.lowest(K, 300, M=M)
+    with pytest.raises(ValueError, match="explicit"):
+        lanqr.lowest(spla.aslinearoperator(K), 3, M=M)
+    with pytest.raises(ValueError, match="finite"):
+        lanqr.lowest(K, 3, shift=np.inf)
+    with pytest.raises(ValueError, match="semi-definite|singular"):
+        Msemi = M.tolil()
+        Msemi[5, :] = 0.0
+        Msemi[:, 5] = 0.0
+        lanqr.highest(K, 3, M=Msemi.tocsr())
