@@ -11,24 +11,26 @@ The factorization of ``A - sigma M`` is the expensive part.  Sparse input is
 factored once by SciPy's SuperLU in its symmetric mode (a minimum-degree
 ordering of ``A + A^T`` applied to rows and columns alike, diagonal pivots
 preferred).  Measured here (fill = nnz(L + U) / nnz(A); backward error of one
-random solve):
+random solve; "default" is SuperLU's COLAMD ordering with partial pivoting):
 
-=========================  =========  ========  ==========  ==========  ==========
-problem                    default    symmetric mode, diagonal pivot threshold
--------------------------  ---------  ----------------------------------------------
-                                      0         0.001       0.01        0.1
-=========================  =========  ========  ==========  ==========  ==========
-2-D Laplacian 300^2        fill 19.8  11.1      11.1        11.1        11.1
-plate 100,488 DOF          fill 19.8  12.4      12.4        12.4        12.4
-lattice 20^3 (indefinite)  fill 75.7  32.3      36.1        60.4        139.4
-  backward error           8.9e-16    2.3e-12   9.2e-14     8.8e-14     1.7e-14
-=========================  =========  ========  ==========  ==========  ==========
+==========================  ==========  =========================================
+problem                     default     symmetric mode, diagonal pivot threshold
+==========================  ==========  =========================================
+2-D Laplacian 300^2         fill 19.8   0: 11.1, 0.01: 11.1, 0.1: 11.1
+plate 100,488 DOF           fill 19.8   0: 12.4, 0.01: 12.4, 0.1: 12.4
+lattice 20^3 (indefinite)   fill 75.7   0: 32.3 (2e-12), 0.001: 36.1, 0.1: 139.4
+lattice 30^3                --          0: 63.4 (1e-12), 1e-4: 63.4, 0.001: 115.0
+lattice 40^3                244 (7e-15) 0: 99.7 (2e-11), 0.001: 189.4
+==========================  ==========  =========================================
 
-A threshold of 0.001 keeps the fill of pure diagonal pivoting and lets the
-few dangerous pivots of an indefinite matrix move off the diagonal; a larger
-threshold pivots so often that the symmetric ordering is lost.  The backward
-error of a random solve is checked after every factorization; above 1e-10 the
-matrix is refactored with SuperLU's default (partial pivoting) options.
+On the positive definite problems every threshold pivots on the diagonal.  On
+the indefinite lattice any threshold large enough to move pivots off the
+diagonal destroys the symmetric ordering (fill up to 2x) while the backward
+error stays at the 1e-12 level either way, so the threshold is 0 (SuperLU
+then leaves the diagonal only for an exactly zero pivot).  Element growth is
+guarded instead: the backward error of a random solve is checked after every
+factorization, and above 1e-10 the matrix is refactored with SuperLU's
+default (partial pivoting) options.
 """
 from __future__ import annotations
 
@@ -47,7 +49,7 @@ __all__ = ["ShiftInvert", "SingularShiftError"]
 _EPS = np.finfo(np.float64).eps
 
 # SuperLU options for a symmetric matrix (see the module note for the measurement).
-SPARSE_LU_OPTIONS = dict(permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.001,
+SPARSE_LU_OPTIONS = dict(permc_spec="MMD_AT_PLUS_A", diag_pivot_thresh=0.0,
                          options=dict(SymmetricMode=True))
 # Backward error of a random solve above which the symmetric-mode factors are
 # replaced by SuperLU's default partial pivoting (element growth).
@@ -140,7 +142,7 @@ class ShiftInvert(spla.LinearOperator):
 
     Sparse matrices are factored by ``scipy.sparse.linalg.splu`` with a
     symmetric ordering (``permc_spec='MMD_AT_PLUS_A'``,
-    ``SymmetricMode=True``, ``diag_pivot_thresh=0.001``; refactored with
+    ``SymmetricMode=True``, ``diag_pivot_thresh=0``; refactored with
     the default options if a random solve shows a backward error above
     1e-10); dense ones by
     ``scipy.linalg.cho_factor`` when ``A - shift M`` is positive definite (the
