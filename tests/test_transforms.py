@@ -60,9 +60,14 @@ def test_factorization_statistics_recorded():
     assert info["kind"] == "sparse LU"
     assert info["nnz_factors"] >= A.nnz - A.shape[0] and info["fill"] >= 1.0
     assert info["seconds"] >= 0.0 and 0.0 < info["min_pivot_ratio"] <= 1.0
-    D = ShiftInvert(A.toarray(), 0.0)
+    assert info["options"] == "symmetric mode" and info["backward_error"] < 1e-14
+    # Diagonal pivots only, so the factors give the inertia at the shift:
+    # the number of eigenvalues below 0.1 by the closed form (reference-values.md §4).
+    assert info["negative_pivots"] == int(np.sum(problems.laplacian_grid_values((40, 40)) < 0.1))
+    small = problems.laplacian_grid((12, 12)).toarray()
+    D = ShiftInvert(small, 0.0)
     assert D.factorization["kind"] == "dense Cholesky"   # shift below the spectrum
-    D = ShiftInvert(A.toarray(), 1.0)
+    D = ShiftInvert(small, 1.0)
     assert D.factorization["kind"] == "dense LU"
 
 

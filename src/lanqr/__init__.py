@@ -9,6 +9,7 @@ from lanqr.api import lowest, highest, NotConvergedWarning
 from lanqr.result import EigenResult
 from lanqr.inertia import count_below, InertiaError
 from lanqr.transforms import ShiftInvert, SingularShiftError
+from lanqr.spectral import nearest, between
 
 __all__ = [
     "__version__",
@@ -23,4 +24,6 @@ __all__ = [
     "InertiaError",
     "ShiftInvert",
     "SingularShiftError",
+    "nearest",
+    "between",
 ]

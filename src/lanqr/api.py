@@ -149,6 +149,15 @@ _DOC_COMMON = """
         float32 is computed in float64; complex input is rejected.
     k : int, optional
         Number of eigenpairs, ``1 <= k < n``.
+    M : ndarray or scipy.sparse matrix, optional
+        Symmetric positive definite mass matrix: solve ``A x = lambda M x``
+        (vectors M-orthonormal, residuals ``||A x - l M x|| / ((||A|| + |l|
+        ||M||) ||x||)``).  The lowest modes of an explicit ``A`` are then found
+        by shift-invert about 0 (stepped off a singular point such as
+        rigid-body modes), with an inertia count check in ``count_check``; see
+        :mod:`lanqr.spectral`.
+    shift : float, optional (``lowest`` only)
+        Shift-invert about ``shift`` (with or without ``M``).
     tol : float, optional
         Relative tolerance per pair (see Notes).
     basis : int, optional
@@ -217,13 +226,22 @@ _DOC_COMMON = """
 """
 
 
-def lowest(A, k=6, *, tol=1e-8, basis=None, max_restarts=None, seed=None, start=None,
-           callback=None):
+def lowest(A, k=6, *, M=None, shift=None, tol=1e-8, basis=None, max_restarts=None, seed=None,
+           start=None, callback=None):
+    if M is not None or shift is not None:
+        from lanqr.spectral import generalized_lowest
+        return generalized_lowest(A, k, M=M, shift=shift, tol=tol, basis=basis,
+                                  max_restarts=max_restarts, seed=seed, start=start,
+                                  callback=callback)
     return _solve(A, k, "lowest", tol, basis, max_restarts, seed, start, callback)
 
 
-def highest(A, k=6, *, tol=1e-8, basis=None, max_restarts=None, seed=None, start=None,
+def highest(A, k=6, *, M=None, tol=1e-8, basis=None, max_restarts=None, seed=None, start=None,
             callback=None):
+    if M is not None:
+        from lanqr.spectral import generalized_highest
+        return generalized_highest(A, k, M=M, tol=tol, basis=basis, max_restarts=max_restarts,
+                                   seed=seed, start=start, callback=callback)
     return _solve(A, k, "highest", tol, basis, max_restarts, seed, start, callback)
 
 

@@ -255,7 +255,7 @@ def count_below(A, x, *, M=None, seed=0):
     >>> from lanqr.problems import laplacian_1d, laplacian_1d_values
     >>> A = laplacian_1d(100)
     >>> count_below(A, 1.0), int(np.sum(laplacian_1d_values(100) < 1.0))
-    (32, 32)
+    (33, 33)
     """
     point = check_point(x, "x")
     A = check_symmetric_matrix(A, "A")
