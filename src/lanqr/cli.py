@@ -355,7 +355,10 @@ def _plot_modes(path, drum, result, frequencies, count=6):
         mode = mode / np.max(np.abs(mode))
         field[inside] = mode
         ax.imshow(field, origin="lower", extent=extent, cmap="RdBu_r", vmin=-1, vmax=1)
-        ax.contour(drum["x"], drum["y"], np.where(inside, field, 0.0), levels=[0.0], colors="k", linewidths=0.6)
+        # Nodal lines (where the membrane stays still) inside, the clamped rim in grey.
+        ax.contour(drum["x"], drum["y"], np.ma.masked_invalid(field), levels=[0.0], colors="k",
+                   linewidths=0.7, linestyles="dashed")
+        ax.contour(drum["x"], drum["y"], inside.astype(float), levels=[0.5], colors="0.35", linewidths=0.8)
         ax.set_title(f"mode {i + 1}: {frequencies[i]:.1f} Hz", fontsize=10)
         ax.set_aspect("equal")
     fig.suptitle("lanqr demo: crescent drumhead, lowest modes (red and blue move in opposite directions)",
