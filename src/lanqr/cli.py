@@ -22,6 +22,7 @@ import platform
 import sys
 import textwrap
 import time
+import warnings
 
 import numpy as np
 
@@ -384,6 +385,8 @@ def _run_solver(A, M, args, k, progress):
     """Dispatch to lowest / highest / nearest / between; solver ValueErrors become input problems."""
     lanqr = _solver()
     common = dict(tol=args.tol, seed=args.seed, M=M)
+    if args.max_restarts is not None:
+        common["max_restarts"] = args.max_restarts
     try:
         if args.near is not None:
             return _call(lanqr.nearest, A, k, args.near, callback=progress, **common)
@@ -395,6 +398,15 @@ def _run_solver(A, M, args, k, progress):
     except ValueError as exc:
         message = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
         _fail(message)
+
+
+def _print_notes(caught):
+    seen = set()
+    for w in caught:
+        text = str(w.message).strip().splitlines()[0] if str(w.message).strip() else ""
+        if text and text not in seen:
+            seen.add(text)
+            print(f"note: {text}", file=sys.stderr)
 
 
 def _check_k(k, n):
@@ -410,6 +422,8 @@ def _cmd_solve(args):
         _fail("--frequencies needs a mass matrix (--mass FILE): f = sqrt(λ)/(2π) holds for K x = λ M x")
     if args.tol is not None and not (0 < args.tol < 1):
         _fail(f"--tol {args.tol} is out of range: it must lie between 0 and 1")
+    if args.max_restarts is not None and args.max_restarts < 0:
+        _fail(f"--max-restarts {args.max_restarts}: must be 0 or more")
     if args.between is not None and not args.between[0] < args.between[1]:
         _fail(f"--between {args.between[0]} {args.between[1]}: the lower end must be below the upper end")
     if args.plot:
@@ -422,10 +436,15 @@ def _cmd_solve(args):
     M = None if mass is None else mass.matrix
 
     progress = _Progress(_progress_enabled(args), k or 0)
-    try:
-        result = _run_solver(stiffness.matrix, M, args, k, progress)
-    finally:
-        progress.close()
+    with warnings.catch_warnings(record=True) as caught:
+        # The table flags unconverged pairs itself; the solver's warnings become
+        # one-line notes instead of Python's two-line warning format.
+        warnings.simplefilter("always")
+        try:
+            result = _run_solver(stiffness.matrix, M, args, k, progress)
+        finally:
+            progress.close()
+    _print_notes(caught)
 
     frequencies = _frequencies(result.values) if args.frequencies else None
     wanted = ("highest" if args.highest else f"nearest {args.near:g}" if args.near is not None
@@ -433,7 +452,7 @@ def _cmd_solve(args):
               else "lowest")
     inputs = {"matrix": stiffness.describe(), "mass": None if mass is None else mass.describe()}
     options = {"k": k, "wanted": wanted, "tol": args.tol, "seed": args.seed, "shift": args.shift,
-               "frequencies": args.frequencies}
+               "max_restarts": args.max_restarts, "frequencies": args.frequencies}
     report = _report("solve", inputs, options, _result_dict(result, frequencies),
                      caution=mass is not None)
     incomplete = (not np.all(result.converged)) or (
@@ -478,9 +497,9 @@ def _cmd_solve(args):
 def _cmd_count(args):
     import lanqr
 
+    stiffness, mass = _load_problem(args)
     if not hasattr(lanqr, "count_below"):
         _fail("this build of lanqr has no inertia count (lanqr.count_below is missing)")
-    stiffness, mass = _load_problem(args)
     M = None if mass is None else mass.matrix
     t0 = time.perf_counter()
     try:
@@ -525,17 +544,22 @@ def _cmd_demo(args):
     if args.plot:
         _require_matplotlib()
         _check_plot_target(args.plot)
+    if not 20 <= args.cells <= 2000:
+        _fail(f"--cells {args.cells}: use between 20 and 2000 grid cells across the drum")
     lanqr = _solver()
     drum = drum_membrane("crescent", cells=args.cells)
     K, M = drum["K"], drum["M"]
     progress = _Progress(_progress_enabled(args), DEMO_MODES)
-    try:
-        # Shift 0 turns the lowest tones into the largest eigenvalues of
-        # K^-1 M, which Lanczos finds in a few dozen steps; K is positive
-        # definite (clamped rim), so the shift is safe.
-        result = _call(lanqr.lowest, K, DEMO_MODES, M=M, shift=0.0, tol=1e-10, seed=0, callback=progress)
-    finally:
-        progress.close()
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            # Shift 0 turns the lowest tones into the largest eigenvalues of
+            # K^-1 M, which Lanczos finds in a few dozen steps; K is positive
+            # definite (clamped rim), so the shift is safe.
+            result = _call(lanqr.lowest, K, DEMO_MODES, M=M, shift=0.0, tol=1e-10, seed=0, callback=progress)
+        finally:
+            progress.close()
+    _print_notes(caught)
     freqs = _frequencies(result.values)
     n = K.shape[0]
     print(f"lanqr {__version__} demo: a crescent-shaped drumhead clamped at its rim")
@@ -659,6 +683,8 @@ def build_parser():
     solve.add_argument("--tol", type=float, default=1e-8, metavar="T",
                        help="relative residual each pair must reach (default 1e-8)")
     solve.add_argument("--seed", type=int, default=0, metavar="S", help="seed of the start vector (default 0)")
+    solve.add_argument("--max-restarts", type=int, default=None, metavar="N",
+                       help="stop after N restarts and report what converged (default: the solver's own limit)")
     solve.add_argument("--out", metavar="DIR",
                        help="write eigenpairs.csv, eigenvectors.npy and report.json into DIR")
     solve.add_argument("--json", action="store_true", help="print the JSON report instead of the table")

@@ -12,6 +12,7 @@ from __future__ import annotations
 import gzip
 import os
 import zipfile
+import zlib
 from dataclasses import dataclass
 
 import numpy as np
@@ -154,8 +155,8 @@ def read_matrix(path):
         raise MatrixFileError(f"{path}: is a directory, not a matrix file")
     try:
         kind = _sniff(path)
-    except (OSError, EOFError) as exc:
-        raise MatrixFileError(f"{path}: cannot read ({exc.strerror or exc})") from None
+    except (OSError, EOFError, zlib.error) as exc:
+        raise MatrixFileError(f"{path}: cannot read ({_first_line(exc)})") from None
     if kind is None:
         raise MatrixFileError(
             f"{path}: unknown format (expected Matrix Market .mtx / .mtx.gz or SciPy sparse .npz)"
@@ -167,11 +168,12 @@ def read_matrix(path):
             matrix, fmt, storage = _read_mm(path, compressed=(kind == "mtx.gz"))
     except MatrixFileError:
         raise
-    except (OSError, EOFError, zipfile.BadZipFile, gzip.BadGzipFile) as exc:
-        raise MatrixFileError(f"{path}: cannot read ({getattr(exc, 'strerror', None) or exc})") from None
-    except (ValueError, TypeError, IndexError, KeyError) as exc:
-        first = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
-        raise MatrixFileError(f"{path}: malformed {fmt_name(kind)} file ({first})") from None
+    except (OSError, EOFError, zipfile.BadZipFile, zlib.error) as exc:
+        raise MatrixFileError(f"{path}: cannot read ({_first_line(exc)})") from None
+    except MemoryError:
+        raise MatrixFileError(f"{path}: cannot read (not enough memory)") from None
+    except Exception as exc:  # noqa: BLE001 - any parser failure is a malformed file to the user
+        raise MatrixFileError(f"{path}: malformed {fmt_name(kind)} file ({_first_line(exc)})") from None
 
     if matrix.ndim != 2 or matrix.shape[0] != matrix.shape[1]:
         raise MatrixFileError(f"{path}: matrix is not square ({matrix.shape[0]} x {matrix.shape[1]})")
@@ -192,6 +194,11 @@ def read_matrix(path):
     return LoadedMatrix(matrix=matrix, path=path, format=fmt, storage=storage)
 
 
+def _first_line(exc):
+    text = str(getattr(exc, "strerror", None) or exc).strip()
+    return text.splitlines()[0] if text else type(exc).__name__
+
+
 def fmt_name(kind):
     return "SciPy .npz" if kind == "npz" else "Matrix Market"
 
@@ -200,7 +207,12 @@ def _read_mm(path, *, compressed):
     import scipy.io
 
     layout, field, symmetry = _mm_header(path, compressed)
-    data = scipy.io.mmread(path)
+    if compressed:
+        # Through a file object, so that gzip files without a .gz ending work too.
+        with gzip.open(path, "rb") as fh:
+            data = scipy.io.mmread(fh)
+    else:
+        data = scipy.io.mmread(path)
     matrix = sp.csr_matrix(data) if not sp.issparse(data) else data.tocsr()
     fmt = "matrix-market (gzip)" if compressed else "matrix-market"
     return matrix, fmt, f"{layout} {field} {symmetry}"
