@@ -422,6 +422,8 @@ def _cmd_solve(args):
         _fail("--frequencies needs a mass matrix (--mass FILE): f = sqrt(λ)/(2π) holds for K x = λ M x")
     if args.tol is not None and not (0 < args.tol < 1):
         _fail(f"--tol {args.tol} is out of range: it must lie between 0 and 1")
+    if args.between is not None and args.k is not None:
+        _fail("-k does not apply to --between, which returns every eigenvalue in the interval")
     if args.max_restarts is not None and args.max_restarts < 0:
         _fail(f"--max-restarts {args.max_restarts}: must be 0 or more")
     if args.between is not None and not args.between[0] < args.between[1]:
@@ -464,9 +466,16 @@ def _cmd_solve(args):
     else:
         source = stiffness.path + (f" with mass matrix {mass.path}" if mass is not None else "")
         print(f"lanqr solve: {source}")
-        print(f"order {n}, {stiffness.matrix.nnz} stored entries; {wanted} "
-              f"{'eigenvalues' if k is None else str(k) + ' eigenvalue' + ('s' if k != 1 else '')}, "
-              f"tolerance {result.tol:g}")
+        plural = "s" if k != 1 else ""
+        if args.between is not None:
+            asked = f"every eigenvalue between {args.between[0]:g} and {args.between[1]:g}"
+        elif args.near is not None:
+            asked = f"the {k} eigenvalue{plural} nearest {args.near:g}"
+        else:
+            asked = f"the {k} {'highest' if args.highest else 'lowest'} eigenvalue{plural}"
+        if args.shift is not None and args.near is None and args.between is None:
+            asked += f" (shift {args.shift:g})"
+        print(f"order {n}, {stiffness.matrix.nnz} stored entries; {asked}, tolerance {result.tol:g}")
         print()
         if len(result.values):
             print(_table(result, frequencies=frequencies))
@@ -538,6 +547,22 @@ def _cmd_count(args):
 DEMO_MODES = 8
 
 
+def _demo_kernel_only():
+    """Stand-in demo for a build without the iterative solver: the tridiagonal kernel alone."""
+    from lanqr.problems import laplacian_1d_values
+    from lanqr.tridiagonal import tridiag_values
+
+    n = 200
+    values = tridiag_values(np.full(n, 2.0), np.full(n - 1, -1.0))
+    exact = laplacian_1d_values(n)
+    print(f"lanqr {__version__}: this build has no iterative solver yet; showing the tridiagonal kernel.")
+    print(f"lowest 6 eigenvalues of tridiag(-1, 2, -1), order {n}, against the closed form")
+    print(f"{'#':>3}  {'computed':>22}  {'closed form':>22}  {'|error|':>9}")
+    for i in range(6):
+        print(f"{i + 1:>3}  {values[i]:>22.16f}  {exact[i]:>22.16f}  {abs(values[i] - exact[i]):>9.1e}")
+    return EXIT_OK
+
+
 def _cmd_demo(args):
     from lanqr.problems import drum_membrane
 
@@ -546,7 +571,10 @@ def _cmd_demo(args):
         _check_plot_target(args.plot)
     if not 20 <= args.cells <= 2000:
         _fail(f"--cells {args.cells}: use between 20 and 2000 grid cells across the drum")
-    lanqr = _solver()
+    import lanqr
+
+    if not hasattr(lanqr, "lowest"):
+        return _demo_kernel_only()
     drum = drum_membrane("crescent", cells=args.cells)
     K, M = drum["K"], drum["M"]
     progress = _Progress(_progress_enabled(args), DEMO_MODES)
@@ -745,6 +773,11 @@ def main(argv=None):
     except InputProblem as exc:
         print(f"lanqr {args.command}: {exc}", file=sys.stderr)
         return EXIT_INPUT
+    except BrokenPipeError:
+        # The reader (e.g. `| head`) went away: stop quietly, like other shell tools.
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+        return 1
     except KeyboardInterrupt:
         print(f"\nlanqr {args.command}: interrupted", file=sys.stderr)
         return 130
