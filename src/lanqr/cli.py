@@ -33,7 +33,7 @@ EXIT_INPUT = 2
 EXIT_INCOMPLETE = 3
 
 CAUTION_TEXT = (
-    "Caution: these frequencies are numerical estimates for the model exactly as given "
+    "Caution: these results are numerical estimates for the model exactly as given "
     "(mesh, material data, supports). A structure that people will rely on must be checked "
     "against the applicable codes by a qualified engineer."
 )
@@ -686,6 +686,13 @@ def _add_matrix_args(p, *, mass_help="mass matrix M of the pencil K x = λ M x (
 
 
 def build_parser():
+    """The argument parser of ``lanqr`` with its four subcommands.
+
+    Returns
+    -------
+    argparse.ArgumentParser
+        Each subcommand stores its handler in ``func``.
+    """
     parser = argparse.ArgumentParser(
         prog="lanqr",
         description="Extreme eigenpairs of large sparse symmetric matrices, from the shell.",
@@ -762,7 +769,37 @@ def build_parser():
 
 
 def main(argv=None):
-    """Run the ``lanqr`` command; returns the exit status."""
+    """Run the ``lanqr`` shell command.
+
+    Parameters
+    ----------
+    argv : list of str, optional
+        The arguments after the program name; ``sys.argv[1:]`` when omitted.
+
+    Returns
+    -------
+    int
+        Exit status: 0 done; 2 bad input or options (one line on stderr);
+        3 an incomplete answer (unconverged pairs, a failed inertia check or
+        a count that could not be certified).
+
+    Raises
+    ------
+    SystemExit
+        Only from argument parsing (``--help``, ``--version``, unknown
+        options: status 2), as :mod:`argparse` does.
+
+    Notes
+    -----
+    Input problems are raised internally as ``InputProblem`` and printed as
+    ``lanqr COMMAND: message``; no traceback reaches the user for them.
+
+    Examples
+    --------
+    >>> main(["count", "no-such-file.mtx", "--below", "1"])  # doctest: +SKIP
+    lanqr count: matrix: no-such-file.mtx: no such file
+    2
+    """
     parser = build_parser()
     args = parser.parse_args(argv)
     if getattr(args, "func", None) is None:
