@@ -159,17 +159,21 @@ class _Progress:
     def __call__(self, info):
         if not self.enabled:
             return
-        restarts = info.get("restarts", info.get("restart", "?"))
-        converged = info.get("nconverged", info.get("converged", "?"))
+        restarts = info.get("restarts", info.get("restart"))
+        converged = None
+        for key in ("nconverged", "converged", "locked"):
+            if key in info:
+                converged = info[key]
+                break
         if isinstance(converged, (list, tuple, np.ndarray)):
             converged = int(np.sum(converged))
-        matvecs = info.get("matvecs", "?")
-        elapsed = time.perf_counter() - self.start
-        line = (
-            f"  restart {restarts}: {converged} of {self.k} converged, "
-            f"{matvecs} operator applications, {elapsed:.1f} s"
-        )
-        sys.stderr.write("\r" + line.ljust(78))
+        parts = [f"restart {restarts}" if restarts is not None else "working"]
+        if converged is not None:
+            parts.append(f"{converged} of {self.k} converged")
+        if info.get("matvecs") is not None:
+            parts.append(f"{info['matvecs']} operator applications")
+        parts.append(f"{time.perf_counter() - self.start:.1f} s")
+        sys.stderr.write("\r  " + ", ".join(parts).ljust(76))
         sys.stderr.flush()
         self.shown = True
 
@@ -307,30 +311,39 @@ def _plot_history(path, result, *, title):
     plt = _require_matplotlib()
     fig, ax = plt.subplots(figsize=(7, 4.5))
     history = list(result.history or [])
+    use_matvecs = bool(history) and all("matvecs" in step for step in history)
     drawn = 0
-    if history:
-        for i, value in enumerate(result.values):
-            xs, ys = [], []
-            for step in history:
-                ritz = np.asarray(step.get("ritz", []), dtype=float)
-                est = np.asarray(step.get("estimates", []), dtype=float)
-                if ritz.size == 0 or est.size != ritz.size:
-                    continue
-                # Follow the pair through the restarts by its nearest Ritz value.
-                j = int(np.argmin(np.abs(ritz - value)))
-                xs.append(step.get("matvecs", len(xs)))
-                ys.append(max(est[j], np.finfo(float).tiny))
-            if xs:
-                ax.semilogy(xs, ys, marker=".", label=f"pair {i + 1} ({value:.6g})")
-                drawn += 1
+    for i, value in enumerate(result.values):
+        xs, ys = [], []
+        scale = abs(value) if value != 0 else 1.0
+        for number, step in enumerate(history):
+            ritz = np.asarray(step.get("ritz", []), dtype=float)
+            est = np.asarray(step.get("estimates", []), dtype=float)
+            if ritz.size == 0 or est.size != ritz.size:
+                continue
+            # Follow the pair through the restarts by its nearest Ritz value, but only
+            # while that Ritz value can still be approximating it: some eigenvalue lies
+            # within the residual of a Ritz value (reference-values.md §12, bound 1), so
+            # a nearer-than-residual Ritz value is this pair's; after the pair is locked
+            # (it leaves the active basis) the nearest active one is another's and is skipped.
+            j = int(np.argmin(np.abs(ritz - value)))
+            slack = 2.0 * est[j] + 10.0 * result.tol * max(abs(value), np.finfo(float).tiny)
+            if abs(ritz[j] - value) > slack:
+                continue
+            xs.append(step["matvecs"] if use_matvecs else number + 1)
+            # Relative to the eigenvalue, like the tolerance line drawn with it.
+            ys.append(max(est[j] / scale, np.finfo(float).tiny))
+        if xs:
+            ax.semilogy(xs, ys, marker=".", label=f"pair {i + 1} ({value:.6g})")
+            drawn += 1
     if drawn:
         ax.axhline(result.tol, color="0.4", linestyle="--", linewidth=1, label=f"tolerance {result.tol:g}")
         ax.legend(fontsize=7, ncol=2)
     else:
         ax.text(0.5, 0.5, "no restart history was recorded for this run", ha="center", va="center",
                 transform=ax.transAxes)
-    ax.set_xlabel("operator applications")
-    ax.set_ylabel("residual estimate")
+    ax.set_xlabel("operator applications" if use_matvecs else "restart")
+    ax.set_ylabel("residual estimate / |eigenvalue|")
     ax.set_title(title, fontsize=10)
     ax.grid(True, which="both", alpha=0.3)
     fig.tight_layout()
