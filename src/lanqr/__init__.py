@@ -5,10 +5,16 @@ QR kernel for symmetric tridiagonal matrices.
 """
 from lanqr._version import __version__
 from lanqr.tridiagonal import tridiag_eigen, tridiag_values, TridiagonalConvergenceError
+from lanqr.api import lowest, highest, NotConvergedWarning
+from lanqr.result import EigenResult
 
 __all__ = [
     "__version__",
     "tridiag_eigen",
     "tridiag_values",
     "TridiagonalConvergenceError",
+    "lowest",
+    "highest",
+    "NotConvergedWarning",
+    "EigenResult",
 ]

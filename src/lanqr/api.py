@@ -1,0 +1,226 @@
+"""Public solver functions: the k lowest or highest eigenpairs of a symmetric operator."""
+from __future__ import annotations
+
+import numbers
+import time
+import warnings
+
+import numpy as np
+import scipy.linalg
+
+from lanqr.operators import as_operator
+from lanqr.restart import FLOOR_FACTOR, thick_restart_lanczos
+from lanqr.result import EigenResult
+from lanqr.vectorspace import VectorSpace
+
+__all__ = ["lowest", "highest", "NotConvergedWarning", "default_basis"]
+
+_EPS = np.finfo(np.float64).eps
+
+
+class NotConvergedWarning(RuntimeWarning):
+    """Some requested eigenpairs did not reach the tolerance; the result says which."""
+
+
+def default_basis(k):
+    """The default largest basis size for ``k`` wanted pairs (chosen by measurement)."""
+    return max(2 * k + 10, 30)
+
+
+# Below this order (or when the basis would cover a large part of the space)
+# a dense symmetric solver is faster and exact to rounding.
+_DENSE_MAX_ORDER = 200
+
+
+def _validate(k, tol, basis, max_restarts, start):
+    if isinstance(k, bool) or not isinstance(k, numbers.Integral):
+        raise ValueError(f"k must be an integer, got {k!r}")
+    if not isinstance(tol, numbers.Real) or not np.isfinite(tol) or not (0.0 < tol < 1.0):
+        raise ValueError(f"tol must be a number in (0, 1), got {tol!r}")
+    if basis is not None and (isinstance(basis, bool) or not isinstance(basis, numbers.Integral)):
+        raise ValueError(f"basis must be an integer, got {basis!r}")
+    if max_restarts is not None and (isinstance(max_restarts, bool)
+                                     or not isinstance(max_restarts, numbers.Integral)
+                                     or max_restarts < 0):
+        raise ValueError(f"max_restarts must be a non-negative integer, got {max_restarts!r}")
+    if start is not None:
+        start = np.asarray(start)
+        if np.iscomplexobj(start):
+            raise ValueError("start must be a real vector")
+        start = start.astype(np.float64).ravel()
+        if not np.all(np.isfinite(start)):
+            raise ValueError("start contains NaN or Inf")
+        if not np.any(start):
+            raise ValueError("start must not be the zero vector")
+    return start
+
+
+def _solve(A, k, selector, tol, basis, max_restarts, seed, start, callback):
+    t0 = time.perf_counter()
+    start = _validate(k, tol, basis, max_restarts, start)
+    rng = np.random.default_rng(seed)
+    op = as_operator(A, seed=rng)
+    n = op.n
+    if not (1 <= k < n):
+        raise ValueError(f"k must satisfy 1 <= k < n = {n}, got k = {k}")
+    if start is not None and start.size != n:
+        raise ValueError(f"start has length {start.size}, expected n = {n}")
+    if basis is None:
+        basis = default_basis(k)
+    basis = int(basis)
+    if basis <= k:
+        raise ValueError(f"basis must exceed k = {k}, got basis = {basis}")
+    if max_restarts is None:
+        max_restarts = 1000
+    space = VectorSpace(n)
+    info = {}
+
+    if n <= max(_DENSE_MAX_ORDER, 2 * basis):
+        dense = op.to_dense()
+        lo, hi = (0, k - 1) if selector == "lowest" else (n - k, n - 1)
+        vals, vecs = scipy.linalg.eigh(dense, subset_by_index=(lo, hi))
+        anorm = float(np.max(np.abs(scipy.linalg.eigvalsh(dense, subset_by_index=(0, 0)))))
+        anorm = max(anorm, float(np.max(np.abs(scipy.linalg.eigvalsh(
+            dense, subset_by_index=(n - 1, n - 1))))))
+        method = "dense (scipy.linalg.eigh)"
+        restarts, history = 0, []
+        vecs = np.asfortranarray(vecs)
+        products = op.apply_block(vecs)
+    else:
+        basis = min(basis, n - 1)
+        out = thick_restart_lanczos(op.apply, space, n, k, selector, tol=tol, basis=basis,
+                                    max_restarts=max_restarts, rng=rng, start=start,
+                                    callback=callback, apply_block=op.apply_block)
+        vals, vecs, products = out["values"], out["vectors"], out["products"]
+        anorm = out["norm_estimate"]
+        method = f"thick-restart Lanczos (basis {basis})"
+        restarts, history = out["restarts"], out["history"]
+        info.update(verification=out["verification"], verified=out["verified"],
+                    exhausted=out["exhausted"], estimates=out["estimates"])
+
+    # Explicit residuals, relative to the pair's own eigenvalue with a floor
+    # at the rounding level of one product (see lowest(), Notes).
+    anorm = max(anorm, float(np.max(np.abs(vals))))
+    floor = FLOOR_FACTOR * _EPS * anorm / tol
+    R = products - vecs * vals
+    rnorm = space.column_norms(R)
+    residuals = rnorm / np.maximum(np.abs(vals), floor) if floor > 0 else \
+        np.where(rnorm == 0, 0.0, np.inf)
+    converged = residuals <= tol
+
+    order = np.argsort(vals, kind="stable")
+    result = EigenResult(
+        values=vals[order], vectors=np.asfortranarray(vecs[:, order]),
+        residuals=residuals[order], converged=converged[order],
+        matvecs=op.applications, restarts=restarts, history=history,
+        elapsed=time.perf_counter() - t0, tol=tol, method=method, info=info)
+    info["norm_estimate"] = anorm
+    if not result.all_converged:
+        warnings.warn(
+            f"{int(np.sum(result.converged))} of {k} eigenpairs converged to tol={tol:g} "
+            f"after {restarts} restarts; see result.converged", NotConvergedWarning, stacklevel=3)
+    return result
+
+
+_DOC_COMMON = """
+    Parameters
+    ----------
+    A : ndarray, scipy.sparse matrix or array, LinearOperator, or object with ``shape`` and ``matvec``
+        The real symmetric operator.  Sparse input is converted to CSR once;
+        float32 is computed in float64; complex input is rejected.
+    k : int, optional
+        Number of eigenpairs, ``1 <= k < n``.
+    tol : float, optional
+        Relative tolerance per pair (see Notes).
+    basis : int, optional
+        Largest basis size; default ``max(2 k + 10, 30)``.
+    max_restarts : int, optional
+        Bound on restarts (default 1000).
+    seed : int, numpy.random.Generator or None, optional
+        Drives every random choice: the same seed gives the same result bit for bit.
+    start : array_like, optional
+        Start vector (random by default).
+    callback : callable, optional
+        ``callback(info)`` after each restart; ``info`` is a dict with the
+        restart number, phase, number of locked pairs, Ritz values and
+        residual estimates.
+
+    Returns
+    -------
+    EigenResult
+        ``values`` ascending, ``vectors`` (orthonormal columns), explicitly
+        computed relative ``residuals``, ``converged`` flags, ``matvecs``
+        (including the ``k`` products of the final residual check),
+        ``restarts``, ``history``, ``elapsed``.
+
+    Raises
+    ------
+    ValueError
+        Non-square, complex, non-symmetric, NaN/Inf input; ``k`` out of range;
+        bad ``tol``, ``basis``, ``max_restarts`` or ``start``.
+
+    Warns
+    -----
+    NotConvergedWarning
+        When some pairs did not converge within ``max_restarts``; the result
+        holds the best approximations with ``converged`` False.
+
+    Notes
+    -----
+    A pair ``(t, x)``, ``||x|| = 1``, is converged when
+
+        ``||A x - t x|| <= tol * max(|t|, floor)``,  ``floor = c eps ||A||_est / tol``
+
+    with ``c = 100`` and ``||A||_est`` the largest |Ritz value| seen.  Each
+    eigenvalue is thus accurate relative to itself, as the lowest modes of a
+    stiff problem need; the floor only matters for eigenvalues within about
+    ``c eps ||A|| / tol`` of zero, where it asks for a residual at the
+    rounding level ``c eps ||A||`` of a single product (no smaller residual can
+    be computed).  Everything is relative: multiplying ``A`` by 1e-150 or
+    1e150 gives the same relative results.  ``residuals`` holds
+    ``||A x - t x|| / max(|t|, floor)`` computed explicitly at the end.
+
+    The method is Lanczos with full reorthogonalization (classical
+    Gram-Schmidt, DGKS second pass) and thick restart with locking; after the
+    wanted pairs converge, a verification round from a fresh random vector
+    looks for copies of repeated eigenvalues.  Problems of order at most
+    ``max(200, 2 basis)`` are solved densely with ``scipy.linalg.eigh``.
+
+    References
+    ----------
+    K. Wu and H. Simon, SIAM J. Matrix Anal. Appl. 22 (2000) 602-616.
+    B. N. Parlett, The Symmetric Eigenvalue Problem, SIAM 1998.
+"""
+
+
+def lowest(A, k=6, *, tol=1e-8, basis=None, max_restarts=None, seed=None, start=None,
+           callback=None):
+    return _solve(A, k, "lowest", tol, basis, max_restarts, seed, start, callback)
+
+
+def highest(A, k=6, *, tol=1e-8, basis=None, max_restarts=None, seed=None, start=None,
+            callback=None):
+    return _solve(A, k, "highest", tol, basis, max_restarts, seed, start, callback)
+
+
+lowest.__doc__ = """The ``k`` lowest (algebraically smallest) eigenpairs of a symmetric operator.
+""" + _DOC_COMMON + """
+    Examples
+    --------
+    >>> import lanqr
+    >>> from lanqr.problems import laplacian_grid
+    >>> res = lanqr.lowest(laplacian_grid((30, 30)), k=3, seed=0)
+    >>> res.values.round(6)
+    array([0.021131, 0.052642, 0.052642])
+"""
+
+highest.__doc__ = """The ``k`` highest (algebraically largest) eigenpairs of a symmetric operator.
+""" + _DOC_COMMON + """
+    Examples
+    --------
+    >>> import lanqr
+    >>> from lanqr.problems import laplacian_grid
+    >>> res = lanqr.highest(laplacian_grid((30, 30)), k=1, seed=0)
+    >>> res.values.round(6)
+    array([7.978869])
+"""
