@@ -13,6 +13,10 @@ import lanqr
 # (with this reason) in a checkout that does not have it yet.
 HAS_SOLVER = all(hasattr(lanqr, name) for name in ("lowest", "highest"))
 needs_solver = pytest.mark.skipif(not HAS_SOLVER, reason="lanqr.lowest/highest not in this checkout")
+needs_mass = pytest.mark.skipif(
+    not (HAS_SOLVER and "M" in __import__("inspect").signature(lanqr.lowest).parameters),
+    reason="lanqr.lowest has no mass matrix support (M=, shift=) in this checkout",
+)
 needs_transforms = pytest.mark.skipif(
     not all(hasattr(lanqr, name) for name in ("nearest", "between", "count_below")),
     reason="lanqr.nearest/between/count_below not in this checkout",

@@ -6,7 +6,7 @@ import scipy.sparse.linalg as sla
 
 from lanqr.problems import drum_membrane, laplacian_grid_values
 
-from _cli_support import needs_solver, run_cli, table_rows, table_values
+from _cli_support import needs_mass, needs_solver, run_cli, table_rows, table_values
 
 # j_{0,1}, first zero of the Bessel function J0 [from memory: 2.404825557695773;
 # verified here against scipy.special.jn_zeros in test_disc_drum_tends_to_bessel_limit].
@@ -60,7 +60,7 @@ def test_drum_rejects_unknown_shape():
         drum_membrane("hexagon")
 
 
-@needs_solver
+@needs_mass
 def test_demo_small_grid_matches_dense_eigh():
     cells = 40
     proc = run_cli("demo", "--cells", cells)
@@ -79,7 +79,7 @@ def test_demo_small_grid_matches_dense_eigh():
     assert "qualified engineer" in proc.stdout and proc.stdout.count("Caution") == 1
 
 
-@needs_solver
+@needs_mass
 def test_demo_default_runs_and_plots(tmp_path):
     pytest.importorskip("matplotlib")
     png = tmp_path / "modes.png"

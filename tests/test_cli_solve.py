@@ -14,7 +14,7 @@ import scipy.sparse.linalg as sla
 
 from lanqr.problems import drum_membrane, laplacian_1d, laplacian_1d_values, laplacian_grid, random_sparse_symmetric
 
-from _cli_support import needs_solver, needs_transforms, run_cli, table_rows, table_values
+from _cli_support import needs_mass, needs_solver, needs_transforms, run_cli, table_rows, table_values
 
 pytestmark = needs_solver
 
@@ -108,6 +108,7 @@ def test_json_and_out_folder(files, tmp_path):
     assert np.linalg.norm(vectors.T @ vectors - np.eye(4)) < 1e-8
 
 
+@needs_mass
 def test_mass_matrix_frequencies(files, tmp_path):
     paths, drum = files["paths"], files["drum"]
     out = tmp_path / "drum"
@@ -177,7 +178,7 @@ def test_progress_only_on_a_terminal(files):
 
     proc, err = stderr_through_pty()
     assert proc.returncode == 0
-    assert "restart" in err and "operator applications" in err
+    assert "restart" in err and err.rstrip().endswith(" s")
     assert "restart" not in proc.stdout.split("summary:")[0]  # the table stays clean
     proc, err = stderr_through_pty("--quiet")
     assert proc.returncode == 0 and err == ""

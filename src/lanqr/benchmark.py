@@ -138,13 +138,16 @@ def _scipy_solve(problem, tol, seed, count):
 def _lanqr_solve(problem, tol, seed):
     import lanqr
 
-    A, M, k = problem.A, problem.M, problem.k
+    A, k = problem.A, problem.k
+    # Only what the problem uses, so that a plain problem runs on any build.
+    extra = {key: value for key, value in (("M", problem.M), ("shift", problem.shift)) if value is not None}
     if problem.mode == "nearest":
-        res = lanqr.nearest(A, k, problem.target, M=M, tol=tol, seed=seed)
+        extra.pop("shift", None)
+        res = lanqr.nearest(A, k, problem.target, tol=tol, seed=seed, **extra)
     elif problem.mode == "highest":
-        res = lanqr.highest(A, k, M=M, tol=tol, seed=seed, shift=problem.shift)
+        res = lanqr.highest(A, k, tol=tol, seed=seed, **extra)
     else:
-        res = lanqr.lowest(A, k, M=M, tol=tol, seed=seed, shift=problem.shift)
+        res = lanqr.lowest(A, k, tol=tol, seed=seed, **extra)
     return np.asarray(res.values), np.asarray(res.vectors), int(res.matvecs), res
 
 

@@ -160,16 +160,16 @@ class _Progress:
         if not self.enabled:
             return
         restarts = info.get("restarts", info.get("restart"))
-        converged = None
-        for key in ("nconverged", "converged", "locked"):
-            if key in info:
-                converged = info[key]
-                break
+        parts = [f"restart {restarts}" if restarts is not None else "working"]
+        converged = info.get("nconverged", info.get("converged"))
         if isinstance(converged, (list, tuple, np.ndarray)):
             converged = int(np.sum(converged))
-        parts = [f"restart {restarts}" if restarts is not None else "working"]
         if converged is not None:
             parts.append(f"{converged} of {self.k} converged")
+        elif info.get("locked") is not None:
+            parts.append(f"{info['locked']} pairs locked of {self.k} wanted")
+        if info.get("phase") == "verify":
+            parts.append("looking for missed copies")
         if info.get("matvecs") is not None:
             parts.append(f"{info['matvecs']} operator applications")
         parts.append(f"{time.perf_counter() - self.start:.1f} s")
@@ -187,8 +187,16 @@ def _progress_enabled(args):
     return (not getattr(args, "quiet", False)) and sys.stderr.isatty()
 
 
+_OPTION_NAMES = {"M": "--mass", "shift": "--shift", "max_restarts": "--max-restarts"}
+
+
 def _call(func, *pos, callback=None, **kwargs):
-    """Call a solver function, passing only the keywords it declares."""
+    """Call a solver function with the keywords it declares.
+
+    Keywords left at None are dropped when the function does not know them;
+    a keyword with a value the function cannot take is an input problem (a
+    mass matrix must never be dropped silently).
+    """
     try:
         params = inspect.signature(func).parameters
     except (TypeError, ValueError):
@@ -196,8 +204,14 @@ def _call(func, *pos, callback=None, **kwargs):
     accepts_any = any(p.kind is inspect.Parameter.VAR_KEYWORD for p in params.values())
     if callback is not None:
         kwargs["callback"] = callback
-    kwargs = {k: v for k, v in kwargs.items() if accepts_any or k in params}
-    return func(*pos, **kwargs)
+    passed = {}
+    for key, value in kwargs.items():
+        if accepts_any or key in params:
+            passed[key] = value
+        elif value is not None and key != "callback":
+            option = _OPTION_NAMES.get(key, key)
+            _fail(f"{option} is not supported by lanqr.{func.__name__} in this build")
+    return func(*pos, **passed)
 
 
 # ----------------------------------------------------------------------------- output
@@ -425,8 +439,8 @@ def _print_notes(caught):
 def _check_k(k, n):
     if k is None:
         return None
-    if k < 1 or k > n:
-        _fail(f"-k {k} is out of range: the matrix has order {n}, so k must be between 1 and {n}")
+    if k < 1 or k >= n:
+        _fail(f"-k {k} is out of range: the matrix has order {n}, so k must be between 1 and {n - 1}")
     return k
 
 
@@ -446,7 +460,7 @@ def _cmd_solve(args):
         _check_plot_target(args.plot)
     stiffness, mass = _load_problem(args)
     n = stiffness.n
-    k = args.k if args.k is not None else (None if args.between is not None else min(6, n))
+    k = args.k if args.k is not None else (None if args.between is not None else min(6, n - 1))
     _check_k(k, n)
     M = None if mass is None else mass.matrix
 
@@ -586,7 +600,7 @@ def _cmd_demo(args):
         _fail(f"--cells {args.cells}: use between 20 and 2000 grid cells across the drum")
     import lanqr
 
-    if not hasattr(lanqr, "lowest"):
+    if not hasattr(lanqr, "lowest") or "M" not in inspect.signature(lanqr.lowest).parameters:
         return _demo_kernel_only()
     drum = drum_membrane("crescent", cells=args.cells)
     K, M = drum["K"], drum["M"]
