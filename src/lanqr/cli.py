@@ -243,8 +243,8 @@ def _format_hz(f):
 
 def _summary(result):
     parts = [
-        f"{result.matvecs} operator applications",
-        f"{result.restarts} restarts",
+        f"{result.matvecs} operator application{'s' if result.matvecs != 1 else ''}",
+        f"{result.restarts} restart{'s' if result.restarts != 1 else ''}",
         f"{result.elapsed:.3g} s",
     ]
     cc = result.count_check
@@ -320,35 +320,59 @@ def _write_outputs(folder, result, report, frequencies=None):
 # ----------------------------------------------------------------------------- plots
 
 
+def _follow_pairs(result, history):
+    """For each returned pair, the restarts at which a Ritz value approximated it and its estimate.
+
+    Ritz values are matched to the returned eigenvalues one to one at each
+    restart (an optimal assignment, so that both copies of a double eigenvalue
+    get their own Ritz value).  A match counts only while the Ritz value is
+    within its residual estimate of the eigenvalue, as some eigenvalue must
+    be (reference-values.md §12, bound 1); a pair is followed until its
+    estimate first meets the tolerance: after that it is locked and leaves
+    the active basis.  Estimates are divided by |eigenvalue|, like the tolerance.
+    """
+    from scipy.optimize import linear_sum_assignment
+
+    values = np.asarray(result.values, dtype=float)
+    scales = np.where(values != 0, np.abs(values), 1.0)
+    traces = [([], []) for _ in values]
+    done = np.zeros(len(values), dtype=bool)
+    for number, step in enumerate(history):
+        ritz = np.asarray(step.get("ritz", []), dtype=float)
+        est = np.asarray(step.get("estimates", []), dtype=float)
+        active = np.flatnonzero(~done)
+        if ritz.size == 0 or est.size != ritz.size or active.size == 0:
+            continue
+        distance = np.abs(ritz[None, :] - values[active, None])
+        slack = 2.0 * est[None, :] + 10.0 * result.tol * scales[active, None]
+        eligible = distance <= slack
+        # Ineligible matches cost more than any eligible set, so they are used last and skipped.
+        cost = np.where(eligible, distance / scales[active, None], 1e6 + distance / scales[active, None])
+        rows, cols = linear_sum_assignment(cost)
+        for r, j in zip(rows, cols):
+            i = active[r]
+            if not eligible[r, j]:
+                continue
+            relative = est[j] / scales[i]
+            traces[i][0].append(number)
+            traces[i][1].append(max(relative, np.finfo(float).tiny))
+            if relative <= result.tol:
+                done[i] = True
+    return traces
+
+
 def _plot_history(path, result, *, title):
     """Residual estimate of each returned pair against operator applications."""
     plt = _require_matplotlib()
     fig, ax = plt.subplots(figsize=(7, 4.5))
     history = list(result.history or [])
     use_matvecs = bool(history) and all("matvecs" in step for step in history)
+    traces = _follow_pairs(result, history)
     drawn = 0
-    for i, value in enumerate(result.values):
-        xs, ys = [], []
-        scale = abs(value) if value != 0 else 1.0
-        for number, step in enumerate(history):
-            ritz = np.asarray(step.get("ritz", []), dtype=float)
-            est = np.asarray(step.get("estimates", []), dtype=float)
-            if ritz.size == 0 or est.size != ritz.size:
-                continue
-            # Follow the pair through the restarts by its nearest Ritz value, but only
-            # while that Ritz value can still be approximating it: some eigenvalue lies
-            # within the residual of a Ritz value (reference-values.md §12, bound 1), so
-            # a nearer-than-residual Ritz value is this pair's; after the pair is locked
-            # (it leaves the active basis) the nearest active one is another's and is skipped.
-            j = int(np.argmin(np.abs(ritz - value)))
-            slack = 2.0 * est[j] + 10.0 * result.tol * max(abs(value), np.finfo(float).tiny)
-            if abs(ritz[j] - value) > slack:
-                continue
-            xs.append(step["matvecs"] if use_matvecs else number + 1)
-            # Relative to the eigenvalue, like the tolerance line drawn with it.
-            ys.append(max(est[j] / scale, np.finfo(float).tiny))
-        if xs:
-            ax.semilogy(xs, ys, marker=".", label=f"pair {i + 1} ({value:.6g})")
+    for i, (steps, ys) in enumerate(traces):
+        if steps:
+            xs = [history[s]["matvecs"] if use_matvecs else s + 1 for s in steps]
+            ax.semilogy(xs, ys, marker=".", label=f"pair {i + 1} ({result.values[i]:.6g})")
             drawn += 1
     if drawn:
         ax.axhline(result.tol, color="0.4", linestyle="--", linewidth=1, label=f"tolerance {result.tol:g}")
@@ -428,8 +452,14 @@ def _run_solver(A, M, args, k, progress):
 
 
 def _print_notes(caught):
+    import lanqr
+
+    # The table and the closing warning line already report unconverged pairs.
+    repeated = getattr(lanqr, "NotConvergedWarning", None)
     seen = set()
     for w in caught:
+        if repeated is not None and issubclass(w.category, repeated):
+            continue
         text = str(w.message).strip().splitlines()[0] if str(w.message).strip() else ""
         if text and text not in seen:
             seen.add(text)
