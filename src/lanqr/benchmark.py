@@ -33,7 +33,7 @@ import scipy.sparse.linalg as sla
 
 from lanqr import problems
 
-__all__ = ["Problem", "Case", "CASES", "DEFAULT_TOL", "compare", "machine_setup", "format_setup", "format_table"]
+__all__ = ["Problem", "Case", "CASES", "DEFAULT_TOL", "compare", "unsupported_reason", "machine_setup", "format_setup", "format_table"]
 
 DEFAULT_TOL = 1e-8
 
@@ -149,6 +149,23 @@ def _lanqr_solve(problem, tol, seed):
     else:
         res = lanqr.lowest(A, k, tol=tol, seed=seed, **extra)
     return np.asarray(res.values), np.asarray(res.vectors), int(res.matvecs), res
+
+
+def unsupported_reason(problem):
+    """Why this build of lanqr cannot run ``problem`` (None when it can)."""
+    import inspect
+
+    import lanqr
+
+    name = {"nearest": "nearest", "highest": "highest"}.get(problem.mode, "lowest")
+    func = getattr(lanqr, name, None)
+    if func is None:
+        return f"lanqr.{name} is not in this build"
+    params = inspect.signature(func).parameters
+    for key, value in (("M", problem.M), ("shift", problem.shift)):
+        if value is not None and key not in params and problem.mode != "nearest":
+            return f"lanqr.{name} takes no {key}= in this build"
+    return None
 
 
 def max_relative_residual(A, M, values, vectors):
@@ -323,9 +340,11 @@ def _fmt_ratio(r):
 
 def format_table(rows, *, repeat, tol):
     """The side-by-side table printed by ``lanqr bench``."""
-    out = [f"median of {repeat} runs each, tolerance {tol:g}; ratio = lanqr / SciPy (below 1: lanqr better)", ""]
+    runs = f"median of {repeat} runs each" if repeat > 1 else "1 run each"
+    out = [f"{runs}, tolerance {tol:g}; ratio = lanqr / SciPy (below 1: lanqr better)", ""]
     head = (f"{'case':<16} {'order':>7} {'k':>3}  {'time lanqr':>10} {'eigsh':>9} {'ratio':>6}  "
-            f"{'op. applications':>16} {'ratio':>6}  {'max residual':>19}  {'peak memory':>19} {'ratio':>6}")
+            f"{'op. applications':>16} {'ratio':>6}  {'max residual':>19}  {'peak memory':>19} {'ratio':>6}"
+            f"  {'|Δλ|':>7}  {'conv.':>5}")
     out.append(head)
     out.append("-" * len(head))
     for row in rows:
@@ -337,11 +356,15 @@ def format_table(rows, *, repeat, tol):
             f"{row['case'][:16]:<16} {row['order']:>7} {row['k']:>3}  {lq['median_s']:>9.3f}s {sc['median_s']:>8.3f}s "
             f"{_fmt_ratio(ra['time']):>6}  {apps:>16} {_fmt_ratio(ra['operator_applications']):>6}  "
             f"{resid:>19}  {mem:>19} {_fmt_ratio(ra['peak_memory']):>6}"
+            f"  {_fmt_diff(row['max_value_difference']):>7}  {lq['converged']:>2}/{row['k']:<2}"
         )
     out.append("")
-    out.append("op. applications, max residual and peak memory: lanqr / SciPy. Residual: ||Ax - λMx|| / (|λ| ||Mx||), "
-               "computed here for both.")
-    diffs = [row["max_value_difference"] for row in rows if row["max_value_difference"] is not None]
-    if diffs:
-        out.append(f"largest eigenvalue disagreement between the two, relative to the largest |λ|: {max(diffs):.1e}")
+    out.append("op. applications, max residual, peak memory: lanqr / SciPy.  max residual: ||Ax - λMx|| / (|λ| ||Mx||),")
+    out.append("computed here for both.  |Δλ|: largest difference of the two solvers' eigenvalues relative to the")
+    out.append("largest |λ| (a large one usually means one solver skipped a copy of a repeated eigenvalue).")
+    out.append("conv.: pairs lanqr reports converged.  Peak memory: traced NumPy/Python allocations.")
     return "\n".join(out)
+
+
+def _fmt_diff(d):
+    return "-" if d is None else f"{d:.0e}"

@@ -451,11 +451,11 @@ def _run_solver(A, M, args, k, progress):
         _fail(message)
 
 
-def _print_notes(caught):
+def _print_notes(caught, *, keep_not_converged=False):
     import lanqr
 
-    # The table and the closing warning line already report unconverged pairs.
-    repeated = getattr(lanqr, "NotConvergedWarning", None)
+    # The solve table and its closing warning line already report unconverged pairs.
+    repeated = None if keep_not_converged else getattr(lanqr, "NotConvergedWarning", None)
     seen = set()
     for w in caught:
         if repeated is not None and issubclass(w.category, repeated):
@@ -707,21 +707,37 @@ def _cmd_bench(args):
         print(benchmark.format_setup(setup))
         print()
     rows = []
+    skipped = []
     for problem in problems:
+        reason = benchmark.unsupported_reason(problem)
+        if reason is not None:
+            if args.file:
+                _fail(reason)
+            skipped.append((problem.name, reason))
+            continue
         if not args.json and not args.quiet:
             print(f"running {problem.name} (order {problem.A.shape[0]}, {problem.k} {problem.mode}) ...",
                   file=sys.stderr, flush=True)
-        try:
-            rows.append(benchmark.compare(problem, repeat=args.repeat, tol=tol, seed=args.seed))
-        except ValueError as exc:
-            _fail(f"{problem.name}: {str(exc).strip().splitlines()[0]}")
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always")
+            try:
+                rows.append(benchmark.compare(problem, repeat=args.repeat, tol=tol, seed=args.seed))
+            except ValueError as exc:
+                _fail(f"{problem.name}: {str(exc).strip().splitlines()[0]}")
+        if not args.quiet:
+            _print_notes(caught, keep_not_converged=True)
     if args.json:
         json.dump(_to_jsonable({"lanqr_report": 1, "command": "bench", "tolerance": tol,
-                                "repeat": args.repeat, "setup": setup, "cases": rows}), sys.stdout, indent=2)
+                                "repeat": args.repeat, "setup": setup, "cases": rows,
+                                "skipped": [{"case": n, "reason": r} for n, r in skipped]}),
+                  sys.stdout, indent=2)
         sys.stdout.write("\n")
     else:
-        print(benchmark.format_table(rows, repeat=args.repeat, tol=tol))
-    return EXIT_OK if all(row["lanqr"]["max_residual"] <= tol for row in rows) else EXIT_INCOMPLETE
+        if rows:
+            print(benchmark.format_table(rows, repeat=args.repeat, tol=tol))
+        for name, reason in skipped:
+            print(f"skipped {name}: {reason}")
+    return EXIT_OK if all(row["lanqr"]["converged"] == row["k"] for row in rows) else EXIT_INCOMPLETE
 
 
 # ----------------------------------------------------------------------------- parser
