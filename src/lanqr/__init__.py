@@ -7,6 +7,8 @@ from lanqr._version import __version__
 from lanqr.tridiagonal import tridiag_eigen, tridiag_values, TridiagonalConvergenceError
 from lanqr.api import lowest, highest, NotConvergedWarning
 from lanqr.result import EigenResult
+from lanqr.inertia import count_below, InertiaError
+from lanqr.transforms import ShiftInvert, SingularShiftError
 
 __all__ = [
     "__version__",
@@ -17,4 +19,8 @@ __all__ = [
     "highest",
     "NotConvergedWarning",
     "EigenResult",
+    "count_below",
+    "InertiaError",
+    "ShiftInvert",
+    "SingularShiftError",
 ]

@@ -60,6 +60,299 @@ def laplacian_grid_values(shape, count=None, *, highest=False):
     return vals[-count:] if highest else vals[:count]
 
 
+# ---------------------------------------------------------------------------
+# Generalized pairs (K, M), interior problems and structures for the spectral
+# transformations: beams, a string, the L-shaped membrane, a disordered
+# lattice and a plane-stress plate.
+# ---------------------------------------------------------------------------
+
+def _assemble(element_dofs, element_matrix, size):
+    """Sum one dense element matrix into the global matrix at ``element_dofs``.
+
+    ``element_dofs`` has one row per element; a negative entry marks a DOF that
+    is held fixed (its row and column are dropped).  COO assembly sums
+    duplicates, which is exactly the finite-element sum.
+    """
+    element_dofs = np.asarray(element_dofs, dtype=np.int64)
+    per = element_dofs.shape[1]
+    rows = np.repeat(element_dofs, per, axis=1).ravel()
+    cols = np.tile(element_dofs, (1, per)).ravel()
+    data = np.tile(np.asarray(element_matrix, dtype=np.float64).ravel(), len(element_dofs))
+    keep = (rows >= 0) & (cols >= 0)
+    A = sp.coo_matrix((data[keep], (rows[keep], cols[keep])), shape=(size, size)).tocsr()
+    A.sum_duplicates()
+    A.sort_indices()
+    # Symmetrize exactly: the element matrices are symmetric, but a sum taken in
+    # a different order for (i, j) and (j, i) could differ in the last bit.
+    return ((A + A.T) * 0.5).tocsr()
+
+
+def cantilever_beam(elements, *, length=1.0, bending_stiffness=1.0, mass_per_length=1.0):
+    """Stiffness and consistent mass of a cantilever of cubic Hermite beam elements.
+
+    Euler-Bernoulli beam clamped at ``x = 0`` and free at ``x = length``,
+    ``elements`` equal elements; unknowns are the deflection and rotation of
+    nodes 1..elements (``2 * elements`` in all).
+
+    Returns
+    -------
+    K, M : scipy.sparse.csr_matrix
+        Symmetric positive definite, banded (bandwidth 3).
+
+    Notes
+    -----
+    The generalized eigenvalues ``K x = lambda M x`` are squared angular
+    frequencies; they converge from above to :func:`cantilever_beam_values`
+    with relative error O(h^4) (reference-values.md section 7).  The
+    condition number of the pair grows like ``elements**4``.
+    """
+    ne = int(elements)
+    if ne < 1:
+        raise ValueError(f"elements must be >= 1, got {elements!r}")
+    l = float(length) / ne
+    EI = float(bending_stiffness)
+    rhoA = float(mass_per_length)
+    Ke = EI / l**3 * np.array([[12, 6 * l, -12, 6 * l],
+                               [6 * l, 4 * l * l, -6 * l, 2 * l * l],
+                               [-12, -6 * l, 12, -6 * l],
+                               [6 * l, 2 * l * l, -6 * l, 4 * l * l]])
+    Me = rhoA * l / 420.0 * np.array([[156, 22 * l, 54, -13 * l],
+                                      [22 * l, 4 * l * l, 13 * l, -3 * l * l],
+                                      [54, 13 * l, 156, -22 * l],
+                                      [-13 * l, -3 * l * l, -22 * l, 4 * l * l]])
+    # Element e joins nodes e and e+1; node j carries DOFs 2j-2, 2j-1 once the
+    # clamped node 0 is removed (its DOFs become -2, -1: dropped).
+    first = 2 * np.arange(ne)[:, None] - 2
+    dofs = first + np.arange(4)[None, :]
+    return _assemble(dofs, Ke, 2 * ne), _assemble(dofs, Me, 2 * ne)
+
+
+def _beam_roots(count, clamped_free):
+    """Roots of cos x cosh x = -1 (cantilever) or +1 (free-free), ascending."""
+    from scipy.optimize import brentq
+
+    roots = []
+    for n in range(1, count + 1):
+        if clamped_free:
+            # cos x + 1/cosh x = 0; the n-th root lies between (2n-1) pi/2 and
+            # the neighbouring multiple of pi where cos x = -1.
+            f = lambda x: np.cos(x) + 1.0 / np.cosh(x)
+            mid = (2 * n - 1) * np.pi / 2
+            other = n * np.pi if n % 2 else (n - 1) * np.pi
+        else:
+            f = lambda x: np.cos(x) - 1.0 / np.cosh(x)
+            mid = (2 * n + 1) * np.pi / 2
+            other = (n + 1) * np.pi if n % 2 else n * np.pi
+        a, b = sorted((mid, other))
+        roots.append(brentq(f, a, b, xtol=1e-15, rtol=4 * np.finfo(float).eps))
+    return np.array(roots)
+
+
+def cantilever_beam_values(count, *, length=1.0, bending_stiffness=1.0, mass_per_length=1.0):
+    """Euler-Bernoulli limits of the lowest ``count`` eigenvalues (omega^2) of a cantilever.
+
+    ``lambda_n = (beta_n L)^4 EI / (rho A L^4)`` with ``beta_n L`` the roots of
+    ``cos x cosh x = -1`` (reference-values.md section 7).
+    """
+    roots = _beam_roots(int(count), clamped_free=True)
+    return roots**4 * bending_stiffness / (mass_per_length * float(length) ** 4)
+
+
+def free_beam_values(count, *, length=1.0, bending_stiffness=1.0, mass_per_length=1.0):
+    """Lowest ``count`` nonzero eigenvalues (omega^2) of a free-free Euler-Bernoulli beam.
+
+    Roots of ``cos x cosh x = 1`` (reference-values.md section 7); the two
+    rigid-body modes at zero are not included.
+    """
+    roots = _beam_roots(int(count), clamped_free=False)
+    return roots**4 * bending_stiffness / (mass_per_length * float(length) ** 4)
+
+
+def string_pair(n, *, length=1.0):
+    """Linear finite elements for ``-u'' = lambda u`` on (0, length), Dirichlet ends.
+
+    ``K = (1/h) tridiag(-1, 2, -1)`` and ``M = (h/6) tridiag(1, 4, 1)`` with
+    ``h = length/(n+1)``; see :func:`string_pair_values` for the closed form.
+    """
+    n = int(n)
+    if n < 1:
+        raise ValueError(f"n must be >= 1, got {n!r}")
+    h = float(length) / (n + 1)
+    K = laplacian_1d(n) / h
+    one = np.ones(max(n - 1, 0))
+    M = sp.diags([one, np.full(n, 4.0), one], [-1, 0, 1], shape=(n, n), format="csr") * (h / 6.0)
+    return K.tocsr(), M.tocsr()
+
+
+def string_pair_values(n, *, length=1.0):
+    """Closed-form generalized eigenvalues of :func:`string_pair`, ascending.
+
+    ``lambda_j = (6/h^2) (1 - cos(j pi h/L)) / (2 + cos(j pi h/L))``, j = 1..n
+    (reference-values.md section 10): both matrices are diagonalised by the same
+    sine vectors.
+    """
+    n = int(n)
+    h = float(length) / (n + 1)
+    theta = np.arange(1, n + 1) * np.pi / (n + 1)
+    return 6.0 / h**2 * (1.0 - np.cos(theta)) / (2.0 + np.cos(theta))
+
+
+def l_shape_membrane(m):
+    """5-point difference Laplacian on the L-shaped membrane, ``h = 1/m``.
+
+    Domain ``[-1, 1]^2`` minus the quadrant ``[0, 1] x [-1, 0]``, Dirichlet
+    boundary; the matrix is ``(4 u_ij - neighbours) / h^2`` on the interior
+    grid points, order ``(2m-1)^2 - m^2`` (m = 200: 119201, as in
+    reference-values.md section 8).
+    """
+    m = int(m)
+    if m < 2:
+        raise ValueError(f"m must be >= 2, got {m!r}")
+    h = 1.0 / m
+    side = 2 * m - 1
+    # Grid index i (x = -1 + i h) and j (y = -1 + j h), i, j = 1..2m-1, row-major in i.
+    i = np.arange(1, side + 1)[:, None]
+    j = np.arange(1, side + 1)[None, :]
+    removed = (i >= m) & (j <= m)
+    keep = np.flatnonzero(~removed.ravel())
+    A = laplacian_grid((side, side))[keep][:, keep] / h**2
+    return A.tocsr()
+
+
+def l_shape_exact_third(m):
+    """The exactly known third eigenvalue of :func:`l_shape_membrane`: ``(8/h^2) sin^2(pi h/2)``.
+
+    The grid function ``sin(pi x) sin(pi y)`` vanishes on the re-entrant edges
+    x = 0 and y = 0, so it is an exact eigenvector on the L-shape
+    (reference-values.md section 8).
+    """
+    h = 1.0 / int(m)
+    return 8.0 / h**2 * np.sin(np.pi * h / 2.0) ** 2
+
+
+def disordered_lattice(shape, *, disorder=6.0, hopping=1.0, seed=0):
+    """Tight-binding Hamiltonian of a disordered lattice (open boundaries).
+
+    ``H = sum_i eps_i |i><i| - hopping * sum_<ij> |i><j|`` on a 1-, 2- or 3-D
+    grid, with on-site energies ``eps_i`` uniform in ``[-disorder/2,
+    disorder/2]`` drawn from ``numpy.random.default_rng(seed)``.  Its
+    spectrum lies in ``[-disorder/2 - 2 d hopping, disorder/2 + 2 d hopping]``
+    and its interior (near 0) is dense: a test for shift-invert.
+    """
+    shape = (shape,) if np.isscalar(shape) else tuple(shape)
+    L = laplacian_grid(shape)
+    n = L.shape[0]
+    d = len(shape)
+    adjacency = sp.identity(n, format="csr") * (2.0 * d) - L
+    rng = np.random.default_rng(seed)
+    onsite = (rng.random(n) - 0.5) * float(disorder)
+    H = sp.diags(onsite, format="csr") - float(hopping) * adjacency
+    H = H.tocsr()
+    H.eliminate_zeros()
+    H.sort_indices()
+    return H
+
+
+def _plane_stress_quad(dx, dy, thickness, young, poisson, density):
+    """Stiffness and consistent mass (8x8) of one bilinear rectangle, plane stress.
+
+    Node order (0,0), (dx,0), (dx,dy), (0,dy); DOFs (u, v) per node.  2x2 Gauss
+    integration is exact for both matrices on a rectangle.
+    """
+    D = young / (1.0 - poisson**2) * np.array([[1.0, poisson, 0.0],
+                                               [poisson, 1.0, 0.0],
+                                               [0.0, 0.0, (1.0 - poisson) / 2.0]])
+    corners = np.array([[-1, -1], [1, -1], [1, 1], [-1, 1]], dtype=float)
+    g = 1.0 / np.sqrt(3.0)
+    K = np.zeros((8, 8))
+    Mscalar = np.zeros((4, 4))
+    jac = dx * dy / 4.0
+    for xi in (-g, g):
+        for eta in (-g, g):
+            N = 0.25 * (1 + corners[:, 0] * xi) * (1 + corners[:, 1] * eta)
+            dN_dx = 0.25 * corners[:, 0] * (1 + corners[:, 1] * eta) * (2.0 / dx)
+            dN_dy = 0.25 * corners[:, 1] * (1 + corners[:, 0] * xi) * (2.0 / dy)
+            B = np.zeros((3, 8))
+            B[0, 0::2] = dN_dx
+            B[1, 1::2] = dN_dy
+            B[2, 0::2] = dN_dy
+            B[2, 1::2] = dN_dx
+            K += B.T @ D @ B * jac * thickness
+            Mscalar += np.outer(N, N) * jac * thickness * density
+    M = np.zeros((8, 8))
+    M[0::2, 0::2] = Mscalar
+    M[1::2, 1::2] = Mscalar
+    return 0.5 * (K + K.T), M
+
+
+def bracket_plate(nx, ny=None, *, clamped=True, length=0.4, height=0.2, thickness=0.006,
+                  young=210e9, poisson=0.3, density=7850.0):
+    """In-plane vibration of a steel wall-bracket plate: plane stress, bilinear quadrilaterals.
+
+    A rectangular plate ``length x height`` (metres, thickness ``thickness``)
+    of ``nx x ny`` equal bilinear elements, bolted to a wall along its edge
+    ``x = 0`` (all displacements there held, ``clamped=True``) or floating
+    free (``clamped=False``: three rigid-body modes, two translations and a
+    rotation, at eigenvalue 0).  SI units; steel by default.
+
+    Returns
+    -------
+    K, M : scipy.sparse.csr_matrix
+        Stiffness and consistent mass; eigenvalues are ``omega^2`` in (rad/s)^2.
+        Clamped: ``2 nx (ny + 1)`` unknowns (``nx = 316`` gives 100,488);
+        free: ``2 (nx + 1)(ny + 1)``.
+
+    Notes
+    -----
+    Nodes are numbered along the height first, which keeps the bandwidth at
+    about ``2 (ny + 1)``.  No closed form exists for the plate; for a slender
+    plate the lowest in-plane modes approach Euler-Bernoulli beam values with
+    ``EI = young * thickness * height^3 / 12`` (reference-values.md section 7),
+    and the first axial mode of the clamped plate approaches the rod value
+    ``(pi / (2 length))^2 young / density``.
+    """
+    nx = int(nx)
+    ny = max(1, nx // 2) if ny is None else int(ny)
+    if nx < 1 or ny < 1:
+        raise ValueError(f"nx and ny must be >= 1, got {nx!r}, {ny!r}")
+    Ke, Me = _plane_stress_quad(length / nx, height / ny, thickness, young, poisson, density)
+    rows_per_column = ny + 1
+    i = np.repeat(np.arange(nx), ny)
+    j = np.tile(np.arange(ny), nx)
+    corner_nodes = np.stack([i * rows_per_column + j,
+                             (i + 1) * rows_per_column + j,
+                             (i + 1) * rows_per_column + j + 1,
+                             i * rows_per_column + j + 1], axis=1)
+    dofs = np.empty((len(i), 8), dtype=np.int64)
+    dofs[:, 0::2] = 2 * corner_nodes
+    dofs[:, 1::2] = 2 * corner_nodes + 1
+    size = 2 * (nx + 1) * rows_per_column
+    if clamped:
+        # Nodes of column i = 0 sit on the wall: drop their DOFs and renumber.
+        dofs -= 2 * rows_per_column
+        size -= 2 * rows_per_column
+    return _assemble(dofs, Ke, size), _assemble(dofs, Me, size)
+
+
+def bracket_plate_rigid_modes(nx, ny=None, *, length=0.4, height=0.2):
+    """The three rigid-body displacement fields of the free plate (columns).
+
+    Translation in x, translation in y and the rotation ``(-y, x)`` about the
+    origin, in the DOF order of ``bracket_plate(..., clamped=False)``; the free
+    stiffness matrix annihilates them exactly (common practice).
+    """
+    nx = int(nx)
+    ny = max(1, nx // 2) if ny is None else int(ny)
+    x = np.repeat(np.linspace(0.0, length, nx + 1), ny + 1)
+    y = np.tile(np.linspace(0.0, height, ny + 1), nx + 1)
+    R = np.zeros((2 * len(x), 3))
+    R[0::2, 0] = 1.0
+    R[1::2, 1] = 1.0
+    R[0::2, 2] = -y
+    R[1::2, 2] = x
+    return R
+
+
 def heisenberg_ring(sites):
     """Spin-1/2 Heisenberg antiferromagnetic ring, J = 1, in the Sz = 0 sector.
 
