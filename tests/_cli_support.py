@@ -17,6 +17,8 @@ needs_mass = pytest.mark.skipif(
     not (HAS_SOLVER and "M" in __import__("inspect").signature(lanqr.lowest).parameters),
     reason="lanqr.lowest has no mass matrix support (M=, shift=) in this checkout",
 )
+needs_count = pytest.mark.skipif(not hasattr(lanqr, "count_below"),
+                                 reason="lanqr.count_below not in this checkout")
 needs_transforms = pytest.mark.skipif(
     not all(hasattr(lanqr, name) for name in ("nearest", "between", "count_below")),
     reason="lanqr.nearest/between/count_below not in this checkout",
@@ -25,10 +27,23 @@ needs_transforms = pytest.mark.skipif(
 _ROW = re.compile(r"^\s*(\d+)\s+(\S+)\s+(.*)$")
 
 
+def quiet_env():
+    """The environment for a child ``python -m lanqr``.
+
+    An editable development install (``-Ceditable.rebuild=true``) checks its
+    compiled modules on every import and by default announces that on stdout
+    and stderr; an installed ``lanqr`` never does.  SKBUILD_EDITABLE_VERBOSE=0
+    keeps the child's output what a user of the installed command sees.
+    """
+    env = dict(os.environ)
+    env["SKBUILD_EDITABLE_VERBOSE"] = "0"
+    env.setdefault("OMP_NUM_THREADS", "1")
+    return env
+
+
 def run_cli(*args, cwd=None, timeout=120, env=None):
     """Run ``python -m lanqr ARGS`` and return the CompletedProcess (text mode)."""
-    full_env = dict(os.environ)
-    full_env.setdefault("OMP_NUM_THREADS", "1")
+    full_env = quiet_env()
     if env:
         full_env.update(env)
     return subprocess.run(

@@ -14,7 +14,7 @@ import scipy.sparse.linalg as sla
 
 from lanqr.problems import drum_membrane, laplacian_1d, laplacian_1d_values, laplacian_grid, random_sparse_symmetric
 
-from _cli_support import needs_mass, needs_solver, needs_transforms, run_cli, table_rows, table_values
+from _cli_support import needs_count, needs_mass, needs_solver, needs_transforms, quiet_env, run_cli, table_rows, table_values
 
 pytestmark = needs_solver
 
@@ -160,7 +160,7 @@ def test_progress_only_on_a_terminal(files):
         try:
             proc = subprocess.run(
                 [sys.executable, "-m", "lanqr", "solve", str(files["paths"]["grid"]), "-k", "4", *extra],
-                stdout=subprocess.PIPE, stderr=slave, text=True, timeout=120,
+                stdout=subprocess.PIPE, stderr=slave, text=True, timeout=120, env=quiet_env(),
             )
             os.close(slave)
             chunks = []
@@ -201,7 +201,7 @@ def test_between_finds_every_eigenvalue_in_interval(files):
     np.testing.assert_allclose(np.sort(table_values(proc.stdout)), inside, rtol=1e-9)
 
 
-@needs_transforms
+@needs_count
 def test_count_below(files):
     proc = run_cli("count", files["paths"]["lap_npz"], "--below", "1.0")
     assert proc.returncode == 0, proc.stderr
@@ -238,3 +238,18 @@ def test_bench_table_layout(files):
     assert proc.returncode == 0, proc.stderr
     assert "ratio = lanqr / SciPy" in proc.stdout
     assert "lap.npz" in proc.stdout
+
+
+@needs_count
+def test_count_at_an_eigenvalue_is_not_certified(tmp_path):
+    # tridiag(-1, 2, -1) of order 3 has the eigenvalue 2 exactly (reference-values.md §4:
+    # 4 sin^2(2 pi / 8) = 2): A - 2 I is singular, so no count can be certified.
+    path = tmp_path / "t3.mtx"
+    scipy.io.mmwrite(path, laplacian_1d(3).tocoo(), symmetry="symmetric")
+    proc = run_cli("count", path, "--below", "2")
+    assert proc.returncode == 3, (proc.stdout, proc.stderr)
+    assert proc.stdout == ""
+    err = proc.stderr.strip()
+    assert "cannot certify" in err and "\n" not in err and "Traceback" not in err
+    proc = run_cli("count", path, "--below", "2.001")
+    assert proc.returncode == 0 and proc.stdout.split()[0] == "2"

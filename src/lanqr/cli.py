@@ -568,20 +568,25 @@ def _cmd_count(args):
         _fail("this build of lanqr has no inertia count (lanqr.count_below is missing)")
     M = None if mass is None else mass.matrix
     t0 = time.perf_counter()
+    uncertified = tuple(getattr(lanqr, name) for name in ("InertiaError", "SingularShiftError") if hasattr(lanqr, name))
     try:
         count = lanqr.count_below(stiffness.matrix, args.below, M=M)
     except ValueError as exc:
-        # The factorization could not decide the sign of every pivot (x at or
-        # numerically next to an eigenvalue, or a singular pencil).
         message = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+        if not isinstance(exc, uncertified):
+            _fail(message)  # bad input the file checks did not catch (e.g. an indefinite mass matrix)
+        # The factorization could not decide the sign of every pivot (x at or
+        # numerically next to an eigenvalue, or a singular pencil): no count is
+        # better than a wrong one.
         if args.json:
             report = _report("count", {"matrix": stiffness.describe(),
                                        "mass": None if mass is None else mass.describe()},
                              {"below": args.below}, {"count": None, "certified": False, "message": message})
             json.dump(report, sys.stdout, indent=2)
             sys.stdout.write("\n")
-        print(f"lanqr count: cannot certify the number of eigenvalues below {args.below:g}: {message}",
-              file=sys.stderr)
+        if "cannot certify" not in message:
+            message = f"cannot certify the number of eigenvalues below {args.below:g}: {message}"
+        print(f"lanqr count: {message.rstrip('.')}; moving the value slightly usually helps", file=sys.stderr)
         return EXIT_INCOMPLETE
     elapsed = time.perf_counter() - t0
     count = int(count)
