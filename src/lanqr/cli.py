@@ -187,7 +187,7 @@ def _progress_enabled(args):
     return (not getattr(args, "quiet", False)) and sys.stderr.isatty()
 
 
-_OPTION_NAMES = {"M": "--mass", "shift": "--shift", "max_restarts": "--max-restarts"}
+_OPTION_NAMES = {"M": "--mass", "shift": "--shift", "max_restarts": "--max-restarts", "certify": "--certify"}
 
 
 def _call(func, *pos, callback=None, **kwargs):
@@ -440,7 +440,8 @@ def _run_solver(A, M, args, k, progress):
         common["max_restarts"] = args.max_restarts
     try:
         if args.near is not None:
-            return _call(lanqr.nearest, A, k, args.near, callback=progress, **common)
+            certify = True if args.certify else None
+            return _call(lanqr.nearest, A, k, args.near, callback=progress, certify=certify, **common)
         if args.between is not None:
             lower, upper = args.between
             return _call(lanqr.between, A, lower, upper, callback=progress, **common)
@@ -481,6 +482,8 @@ def _cmd_solve(args):
         _fail(f"--tol {args.tol} is out of range: it must lie between 0 and 1")
     if args.between is not None and args.k is not None:
         _fail("-k does not apply to --between, which returns every eigenvalue in the interval")
+    if args.certify and args.near is None:
+        _fail("--certify applies to --near (the lowest modes with --mass and --between are checked anyway)")
     if args.max_restarts is not None and args.max_restarts < 0:
         _fail(f"--max-restarts {args.max_restarts}: must be 0 or more")
     if args.between is not None and not args.between[0] < args.between[1]:
@@ -511,7 +514,7 @@ def _cmd_solve(args):
               else "lowest")
     inputs = {"matrix": stiffness.describe(), "mass": None if mass is None else mass.describe()}
     options = {"k": k, "wanted": wanted, "tol": args.tol, "seed": args.seed, "shift": args.shift,
-               "max_restarts": args.max_restarts, "frequencies": args.frequencies}
+               "max_restarts": args.max_restarts, "certify": args.certify, "frequencies": args.frequencies}
     report = _report("solve", inputs, options, _result_dict(result, frequencies),
                      caution=mass is not None)
     incomplete = (not np.all(result.converged)) or (
@@ -790,6 +793,9 @@ def build_parser():
     which.add_argument("--near", type=_finite_float, metavar="X", help="the K eigenvalues closest to X")
     which.add_argument("--between", type=_finite_float, nargs=2, metavar=("A", "B"),
                        help="every eigenvalue in the interval [A, B]")
+    solve.add_argument("--certify", action="store_true",
+                       help="with --near: also count (by inertia) the eigenvalues below and above the pairs "
+                            "found, to prove none in between was missed (two extra factorizations)")
     solve.add_argument("--shift", type=_finite_float, metavar="S",
                        help="for the lowest/highest pairs: work with (K - S M)^-1 (faster for the lowest "
                             "modes of stiffness matrices; S must not be an eigenvalue)")
