@@ -344,7 +344,7 @@ def _follow_pairs(result, history):
         if ritz.size == 0 or est.size != ritz.size or active.size == 0:
             continue
         distance = np.abs(ritz[None, :] - values[active, None])
-        slack = 2.0 * est[None, :] + 10.0 * result.tol * scales[active, None]
+        slack = est[None, :] + 10.0 * result.tol * scales[active, None]
         eligible = distance <= slack
         # Ineligible matches cost more than any eligible set, so they are used last and skipped.
         cost = np.where(eligible, distance / scales[active, None], 1e6 + distance / scales[active, None])
