@@ -178,7 +178,7 @@ def test_progress_only_on_a_terminal(files):
 
     proc, err = stderr_through_pty()
     assert proc.returncode == 0
-    assert "restart" in err and err.rstrip().endswith(" s")
+    assert "restart" in err and "operator applications" in err and err.rstrip().endswith(" s")
     assert "restart" not in proc.stdout.split("summary:")[0]  # the table stays clean
     proc, err = stderr_through_pty("--quiet")
     assert proc.returncode == 0 and err == ""
