@@ -491,6 +491,8 @@ def _cmd_solve(args):
     if args.plot:
         _require_matplotlib()
         _check_plot_target(args.plot)
+    if args.out and os.path.exists(args.out) and not os.path.isdir(args.out):
+        _fail(f"--out {args.out}: exists and is not a folder")
     stiffness, mass = _load_problem(args)
     n = stiffness.n
     k = args.k if args.k is not None else (None if args.between is not None else min(6, n - 1))
