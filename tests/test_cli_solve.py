@@ -112,12 +112,13 @@ def test_json_and_out_folder(files, tmp_path):
 def test_mass_matrix_frequencies(files, tmp_path):
     paths, drum = files["paths"], files["drum"]
     out = tmp_path / "drum"
-    proc = run_cli("solve", paths["drum_K"], "--mass", paths["drum_M"], "-k", 5, "--frequencies",
+    # k = 4: the 5th and 6th eigenvalues are a double pair (§4: (1,3) and (3,1)), k = 5 would cut it.
+    proc = run_cli("solve", paths["drum_K"], "--mass", paths["drum_M"], "-k", 4, "--frequencies",
                    "--shift", "0", "--tol", "1e-10", "--out", out)
     assert proc.returncode == 0, proc.stderr
     # reference-values.md §4 (2-D closed form) scaled by T / (rho h^2), as in test_cli_demo.
     scale = drum["tension"] / (drum["areal_density"] * drum["h"] ** 2)
-    expected = scale * np.sort(np.add.outer(laplacian_1d_values(12), laplacian_1d_values(12)).ravel())[:5]
+    expected = scale * np.sort(np.add.outer(laplacian_1d_values(12), laplacian_1d_values(12)).ravel())[:4]
     values = table_values(proc.stdout)
     np.testing.assert_allclose(values, expected, rtol=1e-9)
     with open(out / "eigenpairs.csv", newline="") as fh:
@@ -128,7 +129,19 @@ def test_mass_matrix_frequencies(files, tmp_path):
     vectors = np.load(out / "eigenvectors.npy")
     # M-orthonormal eigenvectors for the pencil (design.md, result object).
     M = drum["M"]
-    assert np.linalg.norm(vectors.T @ (M @ vectors) - np.eye(5)) < 1e-8
+    assert np.linalg.norm(vectors.T @ (M @ vectors) - np.eye(4)) < 1e-8
+    assert "agrees" in proc.stdout  # the inertia count check of the lowest modes
+
+
+@needs_mass
+def test_cutting_a_double_eigenvalue_is_reported(files):
+    # k = 5 takes one of the two copies of the 5th eigenvalue (reference-values.md §4:
+    # mu_1 + mu_3 = mu_3 + mu_1): the inertia count sees one more eigenvalue below the
+    # top of the returned ones, and the run must say so with exit status 3.
+    paths = files["paths"]
+    proc = run_cli("solve", paths["drum_K"], "--mass", paths["drum_M"], "-k", 5, "--shift", "0", "--tol", "1e-10")
+    assert proc.returncode == 3, (proc.stdout, proc.stderr)
+    assert "DISAGREES" in proc.stdout and "inertia count does not match" in proc.stdout
 
 
 def test_unconverged_pairs_flagged_with_exit_3(files):

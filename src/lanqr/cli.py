@@ -46,6 +46,10 @@ class InputProblem(Exception):
     """Something the user can fix: reported as one line, exit status 2."""
 
 
+class IncompleteAnswer(Exception):
+    """No certified answer could be given (e.g. an inertia count failed): one line, exit status 3."""
+
+
 # ----------------------------------------------------------------------------- helpers
 
 
@@ -249,7 +253,7 @@ def _summary(result):
     ]
     cc = result.count_check
     if cc is not None:
-        verdict = "agrees" if cc.ok else f"DISAGREES ({cc.message})" if cc.message else "DISAGREES"
+        verdict = "agrees" if cc.ok else "DISAGREES"
         parts.append(f"inertia count below {cc.point:.8g}: {cc.count}, expected {cc.expected}, {verdict}")
     else:
         parts.append("no inertia count made")
@@ -449,7 +453,16 @@ def _run_solver(A, M, args, k, progress):
         return _call(func, A, k, callback=progress, shift=args.shift, **common)
     except ValueError as exc:
         message = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+        if isinstance(exc, _uncertified_errors()):
+            raise IncompleteAnswer(message) from None
         _fail(message)
+
+
+def _uncertified_errors():
+    """Solver errors that mean "no certified answer" rather than "bad input"."""
+    import lanqr
+
+    return tuple(getattr(lanqr, name) for name in ("InertiaError",) if hasattr(lanqr, name))
 
 
 def _print_notes(caught, *, keep_not_converged=False):
@@ -551,7 +564,9 @@ def _cmd_solve(args):
                 print(f"warning: {unconverged} of {len(result.values)} pairs did not reach the tolerance "
                       f"(marked above); try a larger --tol, more restarts or a shift")
             else:
-                print("warning: the inertia count does not match the pairs returned")
+                cc = result.count_check
+                print(f"warning: the inertia count does not match the pairs returned"
+                      f"{': ' + cc.message if cc.message else ''}")
         if mass is not None:
             print()
             print(CAUTION)
@@ -573,7 +588,7 @@ def _cmd_count(args):
         _fail("this build of lanqr has no inertia count (lanqr.count_below is missing)")
     M = None if mass is None else mass.matrix
     t0 = time.perf_counter()
-    uncertified = tuple(getattr(lanqr, name) for name in ("InertiaError", "SingularShiftError") if hasattr(lanqr, name))
+    uncertified = _uncertified_errors()
     try:
         count = lanqr.count_below(stiffness.matrix, args.below, M=M)
     except ValueError as exc:
@@ -896,6 +911,9 @@ def main(argv=None):
     except InputProblem as exc:
         print(f"lanqr {args.command}: {exc}", file=sys.stderr)
         return EXIT_INPUT
+    except IncompleteAnswer as exc:
+        print(f"lanqr {args.command}: {exc}", file=sys.stderr)
+        return EXIT_INCOMPLETE
     except BrokenPipeError:
         # The reader (e.g. `| head`) went away: stop quietly, like other shell tools.
         devnull = os.open(os.devnull, os.O_WRONLY)
