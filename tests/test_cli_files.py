@@ -237,3 +237,21 @@ def test_convergence_plot_follows_each_copy_of_a_double_eigenvalue():
     assert traces[1][0] == [0, 1, 2]
     assert traces[2][0] == [2, 3, 4]
     assert traces[2][1][-1] == pytest.approx(1e-9 / 2.0)
+
+
+def test_bench_backward_error_on_closed_form_pairs():
+    # reference-values.md §4: sin(i j pi/(n+1)) are exact eigenvectors of tridiag(-1, 2, -1)
+    # with eigenvalues 4 sin^2(j pi/(2(n+1))); their backward error is at rounding level,
+    # and a wrong eigenvalue gives exactly |Δλ| ||x|| / ((||A||_1 + |λ|) ||x||).
+    from lanqr.benchmark import max_backward_error
+    from lanqr.problems import laplacian_1d_values
+
+    n = 50
+    A = laplacian_1d(n)
+    i = np.arange(1, n + 1)[:, None]
+    j = np.arange(1, 4)[None, :]
+    X = np.sin(i * j * np.pi / (n + 1))
+    lam = laplacian_1d_values(n)[:3]
+    assert max_backward_error(A, None, lam, X) < 10 * np.finfo(float).eps
+    shifted = lam + np.array([0.0, 0.0, 1e-6])
+    assert max_backward_error(A, None, shifted, X) == pytest.approx(1e-6 / (4.0 + shifted[2]), rel=1e-6)

@@ -221,10 +221,10 @@ def _call(func, *pos, callback=None, **kwargs):
 # ----------------------------------------------------------------------------- output
 
 
-def _table(result, *, frequencies=None, label="no."):
+def _table(result, *, frequencies=None, label="no.", value_label="eigenvalue"):
     """Rows of the eigenpair table as one string."""
     freq_col = frequencies is not None
-    head = f"{label:>5}  {'eigenvalue':>23}"
+    head = f"{label:>5}  {value_label:>23}"
     if freq_col:
         head += f"  {'frequency [Hz]':>15}"
     head += f"  {'rel. residual':>13}  status"
@@ -678,7 +678,7 @@ def _cmd_demo(args):
     print(f"  5-point differences on a {1000 * drum['h']:.2f} mm grid: {n} unknowns, "
           f"K x = ω² M x, f = ω / 2π")
     print()
-    print(_table(result, frequencies=freqs, label="mode"))
+    print(_table(result, frequencies=freqs, label="mode", value_label="ω² [1/s²]"))
     print()
     ratios = freqs / freqs[0]
     print("  overtone ratios f/f1: " + "  ".join(f"{r:.3f}" for r in ratios[1:]))
