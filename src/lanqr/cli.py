@@ -495,6 +495,8 @@ def _cmd_solve(args):
         _fail(f"--tol {args.tol} is out of range: it must lie between 0 and 1")
     if args.between is not None and args.k is not None:
         _fail("-k does not apply to --between, which returns every eigenvalue in the interval")
+    if args.shift is not None and (args.highest or args.near is not None or args.between is not None):
+        _fail("--shift applies to the lowest pairs only (--near X already shifts to X)")
     if args.certify and args.near is None:
         _fail("--certify applies to --near (the lowest modes with --mass and --between are checked anyway)")
     if args.max_restarts is not None and args.max_restarts < 0:
@@ -814,8 +816,9 @@ def build_parser():
                        help="with --near: also count (by inertia) the eigenvalues below and above the pairs "
                             "found, to prove none in between was missed (two extra factorizations)")
     solve.add_argument("--shift", type=_finite_float, metavar="S",
-                       help="for the lowest/highest pairs: work with (K - S M)^-1 (faster for the lowest "
-                            "modes of stiffness matrices; S must not be an eigenvalue)")
+                       help="for the lowest pairs: work with (K - S M)^-1, which converges in far fewer "
+                            "steps for stiffness matrices (S must not be an eigenvalue; with --mass the "
+                            "solver picks a shift itself when none is given)")
     solve.add_argument("--tol", type=float, default=1e-8, metavar="T",
                        help="relative residual each pair must reach (default 1e-8)")
     solve.add_argument("--seed", type=int, default=0, metavar="S", help="seed of the start vector (default 0)")
