@@ -146,7 +146,7 @@ def read_matrix(path):
     >>> p = os.path.join(tempfile.mkdtemp(), "a.mtx")
     >>> scipy.io.mmwrite(p, sp.identity(3, format="coo"), symmetry="symmetric")
     >>> read_matrix(p).storage
-    'symmetric'
+    'coordinate real symmetric'
     """
     path = os.fspath(path)
     if not os.path.exists(path):
