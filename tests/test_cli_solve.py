@@ -81,6 +81,8 @@ def test_json_and_out_folder(files, tmp_path):
     assert report["command"] == "solve"
     assert report["inputs"]["matrix"]["rows"] == N1
     assert report["inputs"]["matrix"]["storage"].endswith("symmetric")
+    import hashlib
+    assert report["inputs"]["matrix"]["sha256"] == hashlib.sha256(files["paths"]["lap_sym"].read_bytes()).hexdigest()
     assert report["options"]["k"] == 4 and report["options"]["tol"] == 1e-9
     assert {"lanqr", "numpy", "scipy", "python"} <= set(report["versions"])
     res = report["results"]

@@ -10,6 +10,7 @@ the file and the problem; the shell turns it into exit status 2.
 from __future__ import annotations
 
 import gzip
+import hashlib
 import os
 import zipfile
 import zlib
@@ -50,6 +51,8 @@ class LoadedMatrix:
         ``symmetric``...); for ``.npz`` the SciPy format stored (``csr``...).
     asymmetry : float
         ``max |A - Aᵀ| / max |A|`` before symmetrization (0 for exact symmetry).
+    sha256 : str
+        SHA-256 digest of the file's bytes.
     """
 
     matrix: sp.csr_matrix
@@ -57,6 +60,7 @@ class LoadedMatrix:
     format: str
     storage: str
     asymmetry: float = 0.0
+    sha256: str = ""
 
     @property
     def n(self) -> int:
@@ -71,6 +75,7 @@ class LoadedMatrix:
             "columns": int(self.matrix.shape[1]),
             "stored_entries": int(self.matrix.nnz),
             "asymmetry": float(self.asymmetry),
+            "sha256": self.sha256,
         }
 
 
@@ -191,7 +196,16 @@ def read_matrix(path):
         raise MatrixFileError(
             f"{path}: {int(bad.sum())} entries are NaN or infinite (first at row {row + 1}, column {col + 1})"
         )
-    return LoadedMatrix(matrix=matrix, path=path, format=fmt, storage=storage)
+    return LoadedMatrix(matrix=matrix, path=path, format=fmt, storage=storage, sha256=_sha256(path))
+
+
+def _sha256(path):
+    """Digest of the file as stored, so a report names exactly the data it describes."""
+    digest = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for block in iter(lambda: fh.read(1 << 20), b""):
+            digest.update(block)
+    return digest.hexdigest()
 
 
 def _first_line(exc):
