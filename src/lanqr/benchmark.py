@@ -74,20 +74,33 @@ def _drum():
     return Problem("", drum["K"], 10, mode="lowest", M=drum["M"], shift=0.0)
 
 
+def _plate():
+    K, M = problems.bracket_plate(60)
+    return Problem("", K, 10, mode="lowest", M=M, shift=0.0)
+
+
+# The problems of bench/bench_solver.py and bench/bench_shift_invert.py (their
+# quick sizes, or near them), so that `lanqr bench` finishes in a few minutes.
 CASES = {
     c.name: c
     for c in [
-        Case("grid2d-lowest", "2-D Dirichlet Laplacian, 110 x 110 grid: lowest 8 (no transformation)",
-             lambda: Problem("", problems.laplacian_grid((110, 110)), 8, mode="lowest")),
-        Case("grid3d-highest", "3-D Dirichlet Laplacian, 28^3 grid: highest 8 (clustered top)",
-             lambda: Problem("", problems.laplacian_grid((28, 28, 28)), 8, mode="highest")),
-        Case("spin-ring", "Heisenberg ring, 18 spins, Sz = 0 sector (48620): lowest 4",
-             lambda: Problem("", problems.heisenberg_ring(18), 4, mode="lowest")),
-        Case("graph-near-zero", "random geometric graph Laplacian, 30000 nodes: 6 nearest -0.001",
-             lambda: Problem("", problems.random_geometric_graph(30000, seed=1), 6, mode="nearest",
+        Case("lap2d", "2-D Dirichlet Laplacian 100 x 100: lowest 10, no transformation",
+             lambda: Problem("", problems.laplacian_grid((100, 100)), 10, mode="lowest")),
+        Case("lap3d", "3-D Dirichlet Laplacian 20^3: lowest 10, no transformation",
+             lambda: Problem("", problems.laplacian_grid((20, 20, 20)), 10, mode="lowest")),
+        Case("heis16", "Heisenberg ring of 16 spins, Sz = 0 (12870): lowest 4",
+             lambda: Problem("", problems.heisenberg_ring(16), 4, mode="lowest")),
+        Case("rgg", "random geometric graph Laplacian, 20000 nodes (many components): 10 nearest -0.001",
+             lambda: Problem("", problems.random_geometric_graph(20000, seed=0), 10, mode="nearest",
                              target=-1e-3)),
-        Case("drum-modes", "crescent drumhead K x = λ M x, 300 cells across: lowest 10 with shift 0",
-             _drum),
+        Case("lap2d-shift", "2-D Dirichlet Laplacian 150 x 150: lowest 10 by shift-invert about 0",
+             lambda: Problem("", problems.laplacian_grid((150, 150)), 10, mode="lowest", shift=0.0)),
+        Case("plate", "steel bracket plate, plane stress, 60 x 30 elements, K x = λ M x: lowest 10",
+             _plate),
+        Case("lattice", "disordered 3-D lattice 20^3: 10 nearest 0 (dense interior)",
+             lambda: Problem("", problems.disordered_lattice((20, 20, 20), seed=0), 10, mode="nearest",
+                             target=0.0)),
+        Case("drum", "crescent drumhead of the demo, 300 cells across, K x = λ M x: lowest 10", _drum),
     ]
 }
 
