@@ -19,6 +19,9 @@ __all__ = ["lowest", "highest", "NotConvergedWarning", "default_basis"]
 
 _EPS = np.finfo(np.float64).eps
 
+#: Reorthogonalization of standard problems when not told otherwise.
+DEFAULT_REORTHOGONALIZATION = "partial"
+
 
 class NotConvergedWarning(RuntimeWarning):
     """Some requested eigenpairs did not reach the tolerance; the result says which."""
@@ -86,9 +89,11 @@ def _single_threaded_blas():
 
 
 def _solve(A, k, selector, tol, basis, max_restarts, seed, start, callback,
-           reorthogonalization="full"):
+           reorthogonalization=None):
     t0 = time.perf_counter()
     start = _validate(k, tol, basis, max_restarts, start)
+    if reorthogonalization is None:
+        reorthogonalization = DEFAULT_REORTHOGONALIZATION
     if reorthogonalization not in REORTHOGONALIZATION:
         raise ValueError(f"reorthogonalization must be one of {REORTHOGONALIZATION}, "
                          f"got {reorthogonalization!r}")
@@ -201,10 +206,12 @@ _DOC_COMMON = """
         restart number, phase, number of locked pairs, Ritz values and
         residual estimates.
     reorthogonalization : {"full", "partial"}, optional
-        ``"full"`` (default): every new Lanczos vector is orthogonalized
-        against the whole basis.  ``"partial"``: only when Simon's estimate
-        of the loss of orthogonality exceeds sqrt(eps) (a speed mode; standard
-        problems only, see Notes).
+        ``"full"``: every new Lanczos vector is orthogonalized against the
+        whole basis.  ``"partial"``: against the active basis only when
+        Simon's estimate of the loss of orthogonality exceeds sqrt(eps)
+        (standard problems only, see Notes).  Default: ``"partial"`` for
+        standard problems (chosen by measurement, ``bench/bench_speed.py``),
+        ``"full"`` with ``M`` or ``shift``.
 
     Returns
     -------
@@ -267,13 +274,13 @@ _DOC_COMMON = """
 
 
 def _standard_only(reorthogonalization):
-    if reorthogonalization != "full":
+    if reorthogonalization not in (None, "full"):
         raise ValueError(f"reorthogonalization={reorthogonalization!r} is available for "
                          "standard problems only (no M, no shift)")
 
 
 def lowest(A, k=6, *, M=None, shift=None, tol=1e-8, basis=None, max_restarts=None, seed=None,
-           start=None, callback=None, reorthogonalization="full"):
+           start=None, callback=None, reorthogonalization=None):
     if M is not None or shift is not None:
         _standard_only(reorthogonalization)
         from lanqr.spectral import generalized_lowest
@@ -285,7 +292,7 @@ def lowest(A, k=6, *, M=None, shift=None, tol=1e-8, basis=None, max_restarts=Non
 
 
 def highest(A, k=6, *, M=None, tol=1e-8, basis=None, max_restarts=None, seed=None, start=None,
-            callback=None, reorthogonalization="full"):
+            callback=None, reorthogonalization=None):
     if M is not None:
         _standard_only(reorthogonalization)
         from lanqr.spectral import generalized_highest
