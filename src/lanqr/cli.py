@@ -326,7 +326,7 @@ def _write_outputs(folder, result, report, frequencies=None):
 
 def _shift_of(result):
     """The single shift of a shift-invert run (None for a plain run or several shifts)."""
-    shift = (result.info or {}).get("shift")
+    shift = (getattr(result, "info", None) or {}).get("shift")
     if isinstance(shift, (int, float, np.floating)) and not isinstance(shift, bool) and np.isfinite(shift):
         return float(shift)
     return None
@@ -340,7 +340,7 @@ def _history_space_values(result):
     Runs with several shifts (``between``) cannot be followed: None.
     """
     values = np.asarray(result.values, dtype=float)
-    info = result.info or {}
+    info = getattr(result, "info", None) or {}
     if "pieces" in info:
         return None
     shift = _shift_of(result)
