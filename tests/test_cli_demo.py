@@ -62,14 +62,15 @@ def test_drum_rejects_unknown_shape():
 
 @needs_mass
 def test_demo_small_grid_matches_dense_eigh():
-    cells = 40
+    cells = 30
     proc = run_cli("demo", "--cells", cells)
     assert proc.returncode == 0, proc.stderr
     rows = table_rows(proc.stdout)
     values = table_values(proc.stdout)
     drum = drum_membrane("crescent", cells=cells)
-    dense = scipy.linalg.eigh(drum["K"].toarray(), drum["M"].toarray(), eigvals_only=True)[: len(values)]
     assert len(values) == 8
+    dense = scipy.linalg.eigh(drum["K"].toarray(), drum["M"].toarray(), eigvals_only=True,
+                              subset_by_index=(0, len(values) - 1))
     # The table prints 15 significant digits; tolerance 1e-10 asked of the solver.
     np.testing.assert_allclose(values, dense, rtol=1e-9)
     # Frequency column: f = sqrt(lambda) / (2 pi), printed to 3 decimals.

@@ -269,3 +269,13 @@ def test_count_at_an_eigenvalue_is_not_certified(tmp_path):
     assert "cannot certify" in err and "\n" not in err and "Traceback" not in err
     proc = run_cli("count", path, "--below", "2.001")
     assert proc.returncode == 0 and proc.stdout.split()[0] == "2"
+
+
+@needs_mass
+def test_plot_of_a_shift_invert_run(files, tmp_path):
+    pytest.importorskip("matplotlib")
+    png = tmp_path / "si.png"
+    proc = run_cli("solve", files["paths"]["drum_K"], "--mass", files["paths"]["drum_M"], "-k", 4,
+                   "--shift", "0", "--plot", png)
+    assert proc.returncode == 0, proc.stderr
+    assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
