@@ -123,10 +123,14 @@ class Counting(spla.LinearOperator):
         return self.A @ X
 
 
+#: lanqr keywords for every solve (set from the command line).
+LANQR_OPTIONS = {}
+
+
 def solve(side, A, k, tol):
     """Run one solver; return (values, vectors, operator applications)."""
     if side == "lanqr":
-        res = lanqr.lowest(A, k, tol=tol, seed=0)
+        res = lanqr.lowest(A, k, tol=tol, seed=0, **LANQR_OPTIONS)
         return res.values, res.vectors, res.matvecs
     op = Counting(A)
     v0 = np.random.default_rng(0).standard_normal(A.shape[0])
@@ -246,7 +250,8 @@ def print_setup(args):
           f"Python {platform.python_version()}, {os.cpu_count()} CPUs, "
           f"OMP_NUM_THREADS={os.environ.get('OMP_NUM_THREADS', 'unset')}, "
           f"OMP_WAIT_POLICY={os.environ.get('OMP_WAIT_POLICY', 'unset')}, "
-          f"tol {args.tol:g}, repeats {args.repeats}", flush=True)
+          f"tol {args.tol:g}, repeats {args.repeats}, lanqr options {LANQR_OPTIONS or 'defaults'}",
+          flush=True)
     try:
         from lanqr.vecops import default_threads
         print(f"# lanqr compiled kernels: default_threads() = {default_threads()}")
@@ -363,10 +368,14 @@ def main(argv=None):
     ap.add_argument("--tol", type=float, default=1e-8)
     ap.add_argument("--cap", type=float, default=None, help="seconds per solve (overrides)")
     ap.add_argument("--sides", default="lanqr,eigsh,eigsh-ncv")
+    ap.add_argument("--reorthogonalization", choices=("full", "partial"), default=None,
+                    help="lanqr's reorthogonalization (default: lanqr's default)")
     ap.add_argument("--blas-threads", type=int, default=None,
                     help="limit BLAS threads for every side (threadpoolctl); default: as found")
     args = ap.parse_args(argv)
     sides = args.sides.split(",")
+    if args.reorthogonalization:
+        LANQR_OPTIONS["reorthogonalization"] = args.reorthogonalization
     limiter = None
     if args.blas_threads is not None:
         from threadpoolctl import threadpool_limits
