@@ -137,7 +137,10 @@ def _solve(A, k, selector, tol, basis, max_restarts, seed, start, callback):
     if not result.all_converged:
         warnings.warn(
             f"{int(np.sum(result.converged))} of {k} eigenpairs converged to tol={tol:g} "
-            f"after {restarts} restarts; see result.converged", NotConvergedWarning, stacklevel=3)
+            f"after {restarts} restarts; see result.converged.  Converged pairs are "
+            f"eigenpairs, but not necessarily the {k} {selector} ones: the search did not "
+            f"finish (for a cluster near a spectral end, a shift-invert transformation "
+            f"helps)", NotConvergedWarning, stacklevel=3)
     return result
 
 
