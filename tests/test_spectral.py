@@ -258,3 +258,15 @@ def test_generalized_bad_input():
         Msemi[5, :] = 0.0
         Msemi[:, 5] = 0.0
         lanqr.highest(K, 3, M=Msemi.tocsr())
+
+
+def test_between_interior_of_disordered_lattice_against_lapack():
+    # Every eigenvalue of an indefinite lattice in [-0.6, 0.4], against LAPACK eigvalsh.
+    H = problems.disordered_lattice((8, 8, 9), seed=15)
+    ev = np.linalg.eigvalsh(H.toarray())
+    want = ev[(ev >= -0.6) & (ev <= 0.4)]
+    res = lanqr.between(H, -0.6, 0.4, seed=15, max_per_shift=20)
+    assert len(res.values) == len(want) > 20
+    assert np.allclose(res.values, want, rtol=0, atol=1e-9)
+    assert res.count_check.ok and res.all_converged
+    assert np.abs(res.vectors.T @ res.vectors - np.eye(len(want))).max() < 1e-8
