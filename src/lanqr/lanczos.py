@@ -18,8 +18,9 @@ Math. Comp. 30 (1976) 772-795 (the DGKS criterion).
 from __future__ import annotations
 
 import numpy as np
+from scipy.linalg.blas import daxpy, dgemv, dnrm2
 
-__all__ = ["reorthogonalize", "random_orthogonal_direction", "extend_basis"]
+__all__ = ["reorthogonalize", "subtract_combination", "random_orthogonal_direction", "extend_basis"]
 
 # DGKS: repeat the Gram-Schmidt pass when the norm dropped below
 # 1/sqrt(2) of its value before the pass ("twice is enough" for this choice).
@@ -47,12 +48,16 @@ def reorthogonalize(space, V, w):
     norm_before, norm_after : float
         Norms of ``w`` before and after.
     """
-    norm_before = space.norm(w)
     if V.shape[1] == 0:
-        return np.zeros(0), norm_before, norm_before
+        norm = space.norm(w)
+        return np.zeros(0), norm, norm
     total = space.coefficients(V, w)
-    w -= V @ total
+    subtract_combination(V, total, w)
     norm_after = space.norm(w)
+    # Pythagoras for V orthonormal: ||w||^2 = ||w - V h||^2 + ||h||^2, so the
+    # norm before the pass costs no extra sweep over w (dnrm2 and hypot avoid
+    # overflow and underflow).
+    norm_before = float(np.hypot(norm_after, dnrm2(total)))
     reference = norm_before
     # At most two more passes: after a second pass the vector is orthogonal to
     # working precision unless it was (numerically) inside span(V).
@@ -60,11 +65,20 @@ def reorthogonalize(space, V, w):
         if norm_after >= DGKS_ETA * reference:
             break
         h = space.coefficients(V, w)
-        w -= V @ h
+        subtract_combination(V, h, w)
         total += h
         reference = norm_after
         norm_after = space.norm(w)
     return total, norm_before, norm_after
+
+
+def subtract_combination(V, h, w):
+    """``w -= V @ h`` in place (one BLAS dgemv, no temporary vector)."""
+    if V.dtype == np.float64 and V.flags.f_contiguous and w.flags.c_contiguous \
+            and w.flags.writeable and w.dtype == np.float64:
+        dgemv(-1.0, V, h, beta=1.0, y=w, overwrite_y=1)
+    else:
+        w -= V @ h
 
 
 def random_orthogonal_direction(space, V, rng):
@@ -121,11 +135,11 @@ def extend_basis(apply, space, Q, offset, first, last, alpha, beta, rng, *,
     for j in range(first, last):
         c = offset + j
         q = Q[:, c]
-        w = apply(q)
+        w = np.require(apply(q), dtype=np.float64, requirements=["C", "W"])
         a = space.dot(q, w)
-        w -= a * q
+        daxpy(q, w, a=-a)
         if j > 0 and beta[j - 1] != 0.0:
-            w -= beta[j - 1] * Q[:, c - 1]
+            daxpy(Q[:, c - 1], w, a=-beta[j - 1])
         coeffs, before, after = reorthogonalize(space, Q[:, :c + 1], w)
         a += coeffs[c]
         alpha[j] = a
@@ -135,11 +149,10 @@ def extend_basis(apply, space, Q, offset, first, last, alpha, beta, rng, *,
         # splits and the Ritz pairs of the invariant part are exact.
         if after <= 8.0 * _EPS * max(norm_estimate, before):
             beta[j] = 0.0
-            w = random_orthogonal_direction(space, Q[:, :c + 1], rng)
+            Q[:, c + 1] = random_orthogonal_direction(space, Q[:, :c + 1], rng)
         else:
             beta[j] = after
-            w /= after
-        Q[:, c + 1] = w
+            np.multiply(w, 1.0 / after, out=Q[:, c + 1])
         if after_step is not None and after_step(j + 1):
             return j + 1
     return last

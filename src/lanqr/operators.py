@@ -176,10 +176,18 @@ def _callable_operator(A, rng, check):
         elif has_matmat:
             y = np.asarray(matmat(X))
         else:
-            y = np.column_stack([np.asarray(matvec(X[:, i])).reshape(n) for i in range(X.shape[1])])
+            # Copy each column: a matvec may reuse one output buffer.
+            y = np.empty((n, X.shape[1]))
+            for i in range(X.shape[1]):
+                col = np.asarray(matvec(X[:, i])).reshape(n)
+                if np.iscomplexobj(col):
+                    raise ValueError("the operator returned complex values")
+                y[:, i] = col
         if np.iscomplexobj(y):
             raise ValueError("the operator returned complex values")
-        return y
+        # Always a fresh array: the solver updates products in place, and a
+        # user's matvec may return its input or a view of its own storage.
+        return np.array(y, dtype=np.float64, copy=True)
 
     op = SymmetricOperator(n, apply_block, "linear operator")
     if check and n > 0:
