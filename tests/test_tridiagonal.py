@@ -5,6 +5,7 @@ table of published and independently computed check values; its section
 numbers are quoted (§1 Wilkinson W21+, §2 W21-, §3 Clement, §4 Laplacians,
 §5 Gauss quadrature, §11 graded tridiagonal, §12 accuracy criteria).
 """
+import pickle
 import threading
 
 import numpy as np
@@ -468,6 +469,8 @@ def test_sweep_limit_raises_with_converged_count(which):
     # whatever it reports as converged really is an eigenvalue (LAPACK as referee)
     for v in err.converged_values:
         assert np.abs(ref - v).min() <= 10 * 40 * EPS * np.abs(ref).max()
+    clone = pickle.loads(pickle.dumps(err))
+    assert str(clone) == str(err) and clone.n_converged == err.n_converged
     # and the default limit (about 30 n sweeps) is far from reached
     assert boundary.SWEEPS_PER_ORDER == 30
 
