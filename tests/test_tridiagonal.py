@@ -520,3 +520,14 @@ def test_portable_and_simd_rotation_paths(name, row_block, batch):
         assert resid < 30 and orth < 30, (simd, resid, orth)
         results.append(w)
     assert np.abs(results[0] - results[1]).max() <= 10 * n * EPS * np.abs(results[0]).max()
+
+
+@pytest.mark.parametrize("seed", range(40))
+def test_values_path_on_wide_random_grading(seed):
+    # Random signs and magnitudes 1e-150 .. 1e150 in every entry: the square-
+    # root-free sweep meets tiny pp next to huge r here, where a reciprocal
+    # r / pp can overflow (a regression seen in a stress run).  LAPACK dsterf
+    # through SciPy as referee: within 10 n eps ||T|| (the criterion).
+    d, e = graded_wide(300, 1000 + seed, 0)
+    ref = scipy.linalg.eigh_tridiagonal(d, e, eigvals_only=True, lapack_driver="sterf")
+    assert np.abs(tridiag_values(d, e) - ref).max() <= 10 * 300 * EPS * np.abs(ref).max()

@@ -317,16 +317,21 @@ cdef int _values_core(double* d, double* e, Py_ssize_t n,
                 c = pp / r
                 s = bb / r
                 # gamma^2 / c = gamma^2 * (r / pp): the quotient is formed
-                # beside c, so the loop-carried chain has one division.
+                # beside c, so the loop-carried chain has one division.  When
+                # pp is tiny next to r, r / pp can overflow where the quotient
+                # by c (which then underflows towards 0) is still right: take
+                # the division in that rare case.
                 q = r / pp
                 oldgam = gamma
                 alpha = d[i]
                 gamma = c * (alpha - sigma) - s * oldgam
                 d[i + 1] = oldgam + (alpha - gamma)
-                if c != 0.0:
+                if c == 0.0:
+                    pp = oldc * bb
+                elif q < 1e290:
                     pp = (gamma * gamma) * q
                 else:
-                    pp = oldc * bb
+                    pp = (gamma * gamma) / c
                 i -= 1
             e[l] = s * pp
             d[l] = sigma + gamma
