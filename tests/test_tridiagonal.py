@@ -531,3 +531,22 @@ def test_values_path_on_wide_random_grading(seed):
     d, e = graded_wide(300, 1000 + seed, 0)
     ref = scipy.linalg.eigh_tridiagonal(d, e, eigvals_only=True, lapack_driver="sterf")
     assert np.abs(tridiag_values(d, e) - ref).max() <= 10 * 300 * EPS * np.abs(ref).max()
+
+
+def test_subnormal_rotation_radius_regression():
+    # A 6 x 6 block cut from a stress run over random gradings 1e-150 .. 1e150:
+    # a rotation radius became subnormal, where 1 / r overflows; the sweep then
+    # produced NaN.  LAPACK dstev solves the full matrix; we ask for the
+    # reference-values.md §12 backward-error ratios below 30.
+    d = np.array([-9.384130231234567e+89, -2.1177784445627216e+92, 4.76164439554887e-133,
+                  -2.0641439962693773e-62, 5.776087400007642e-72, -2.782509789413832e+135])
+    e = np.array([3.2290344574870206e+91, 2.99560791964702e-34, 2.3012328461740103e-37,
+                  6.5307122466867496e-59, 2.6802211115945477e+51])
+    for rows in (None, [-1], [0, -1]):
+        w, z = tridiag_eigen(d, e, rows=rows)
+        assert np.all(np.isfinite(w)) and np.all(np.isfinite(z))
+    w, z = tridiag_eigen(d, e)
+    resid, orth = backward_ratios(d, e, w, z)
+    assert resid < 30 and orth < 30
+    ref = scipy.linalg.eigh_tridiagonal(d, e, eigvals_only=True)
+    assert np.abs(w - ref).max() <= 10 * 6 * EPS * np.abs(ref).max()

@@ -627,9 +627,14 @@ cdef int _vectors_core(double* d, double* e, Py_ssize_t n,
                     e[m] = 0.0
                     lowest = i + 1
                     break
-                inv = 1.0 / r
-                s = f * inv
-                c = g * inv
+                if r > 4.0 * SAFMIN:
+                    inv = 1.0 / r
+                    s = f * inv
+                    c = g * inv
+                else:
+                    # 1 / r would overflow for subnormal r: divide instead
+                    s = f / r
+                    c = g / r
                 g = d[i + 1] - p
                 r = (d[i] - g) * s + 2.0 * c * b
                 p = s * r
