@@ -60,6 +60,14 @@ cdef double SSFMIN = sqrt(SAFMIN) / EPS2
 # 8 rows (portable loops only, no AVX2 chain) / 32 sweeps 0.49x.
 cdef Py_ssize_t ROW_BLOCK = 16
 cdef Py_ssize_t SWEEPS_PER_BATCH = 32
+# Sweeps without a deflation after which the absolute floor joins the
+# relative deflation test (see _stall_floor2); well-behaved blocks deflate an
+# eigenvalue every 2-3 sweeps.
+cdef int STALL_SWEEPS = 12
+# A values-only block whose smallest coupling (after scaling) is below this
+# takes the rotation sweep instead of the square-root-free one: its square is
+# then within EPS^-2 of the underflow threshold.
+cdef double WIDE_RANGE = sqrt(SAFMIN) / EPS
 # Up to this many kept rows are rotated inside the sweep itself.
 cdef Py_ssize_t FEW_ROWS = 4
 
@@ -164,6 +172,21 @@ cdef inline double _hypot(double a, double b) noexcept nogil:
     return hypot(a, b)
 
 
+cdef inline double _stall_floor2(double block_norm) noexcept nogil:
+    """Squared absolute deflation floor (eps ||T_block||)^2, used after a stall.
+
+    The relative test |e_m|^2 <= eps^2 |d_m d_{m+1}| keeps graded matrices
+    accurate, but a coupling between two entries that are both far below
+    eps ||T|| can then never pass it, and when the bulge underflows on its way
+    to the deflating end the sweeps stop making progress.  After STALL_SWEEPS
+    sweeps without a deflation, couplings below eps ||T_block|| are dropped as
+    well: a normwise backward-stable change, the criterion of the absolute
+    error bound (reference: LAPACK Users' Guide section 4.7).
+    """
+    cdef double t = EPS * block_norm
+    return t * t + SAFMIN
+
+
 cdef inline Py_ssize_t _next_split(const double* d, double* e, Py_ssize_t l1,
                                    Py_ssize_t n) noexcept nogil:
     """End of the unreduced block that starts at l1; zeroes the negligible e."""
@@ -207,6 +230,20 @@ cdef void _reverse_columns(double* z, Py_ssize_t ldz, Py_ssize_t nrows,
         hi -= 1
 
 
+cdef struct SweepBatch:
+    # Rotations of up to ``capacity`` sweeps, not yet applied to Z.  Sweep j
+    # holds rotations i = hi[j]-1 down to lo[j] in cs/sn[j*n + i].
+    double* cs
+    double* sn
+    Py_ssize_t* lo
+    Py_ssize_t* hi
+    Py_ssize_t count
+    Py_ssize_t capacity
+    Py_ssize_t n
+    Py_ssize_t row_block   # rows of Z that take all stored sweeps together
+    bint simd              # use the AVX2 + FMA chain for groups of 16 rows
+
+
 # ----------------------------------------------------------------------------
 # Values only: square-root-free QL (Pal-Walker-Kahan) on q_i = e_i^2.
 # ----------------------------------------------------------------------------
@@ -223,6 +260,11 @@ cdef int _values_core(double* d, double* e, Py_ssize_t n,
     cdef double p, rte, sigma, r, c, s, oldc, gamma, oldgam, pp, bb, alpha, q
     cdef double a, b, t, sm
     cdef int status = 0
+    cdef int stalled = 0
+    cdef double amin
+    cdef Py_ssize_t extra = 0
+    cdef SweepBatch empty
+    cdef double floor2 = SAFMIN
 
     while l1 < n:
         if l1 > 0:
@@ -246,6 +288,25 @@ cdef int _values_core(double* d, double* e, Py_ssize_t n,
         if anorm == 0.0:
             continue
         scale = _block_scale(anorm)
+        # The square-root-free sweep works on squares: when the block holds
+        # couplings whose squares (after scaling) fall near the underflow
+        # threshold, it loses absolute accuracy (as LAPACK dsterf does on
+        # entries spanning 1e-300 .. 1e300).  Such a block takes the rotation
+        # form of the sweep instead, without vectors.
+        amin = anorm
+        for i in range(l, lend):
+            t = fabs(e[i])
+            if t < amin:
+                amin = t
+        if amin * scale < WIDE_RANGE:
+            empty.count = 0
+            empty.capacity = 0
+            status = _vectors_core(d + l, e + l, lend - l + 1, NULL, 0, 0,
+                                   &empty, NULL, max_sweeps - sweeps, &extra)
+            sweeps += extra
+            if status:
+                break
+            continue
         if scale != 1.0:
             for i in range(l, lend + 1):
                 d[i] *= scale
@@ -260,18 +321,22 @@ cdef int _values_core(double* d, double* e, Py_ssize_t n,
             _reverse(d, l, lend)
             _reverse(e, l, lend - 1)
         lstart = l
+        stalled = 0
+        floor2 = SAFMIN
 
         while l <= lend:
             # Look for a negligible q_m (squared form of the split test).
             m = l
             while m < lend:
-                if e[m] <= EPS2 * fabs(d[m] * d[m + 1]) + SAFMIN:
+                if e[m] <= EPS2 * fabs(d[m] * d[m + 1]) + floor2:
                     break
                 m += 1
             if m < lend:
                 e[m] = 0.0
             if m == l:
                 l += 1
+                stalled = 0
+                floor2 = SAFMIN
                 continue
             if m == l + 1:
                 # 2x2 block [[a, b], [b, c]]: eigenvalues a - t b and c + t b
@@ -290,11 +355,16 @@ cdef int _values_core(double* d, double* e, Py_ssize_t n,
                 d[l] = t
                 e[l] = 0.0
                 l += 2
+                stalled = 0
+                floor2 = SAFMIN
                 continue
             if sweeps >= max_sweeps:
                 status = 1
                 break
             sweeps += 1
+            stalled += 1
+            if stalled == STALL_SWEEPS:
+                floor2 = _stall_floor2(anorm * scale)
 
             # Wilkinson shift from the leading 2x2.
             p = d[l]
@@ -317,16 +387,21 @@ cdef int _values_core(double* d, double* e, Py_ssize_t n,
                 c = pp / r
                 s = bb / r
                 # gamma^2 / c = gamma^2 * (r / pp): the quotient is formed
-                # beside c, so the loop-carried chain has one division.
+                # beside c, so the loop-carried chain has one division.  When
+                # pp is tiny next to r, r / pp can overflow where the quotient
+                # by c (which then underflows towards 0) is still right: take
+                # the division in that rare case.
                 q = r / pp
                 oldgam = gamma
                 alpha = d[i]
                 gamma = c * (alpha - sigma) - s * oldgam
                 d[i + 1] = oldgam + (alpha - gamma)
-                if c != 0.0:
+                if c == 0.0:
+                    pp = oldc * bb
+                elif q < 1e290:
                     pp = (gamma * gamma) * q
                 else:
-                    pp = oldc * bb
+                    pp = (gamma * gamma) / c
                 i -= 1
             e[l] = s * pp
             d[l] = sigma + gamma
@@ -349,20 +424,6 @@ cdef int _values_core(double* d, double* e, Py_ssize_t n,
 # ----------------------------------------------------------------------------
 # Vectors: QL with Givens rotations, accumulated into the kept rows of Z.
 # ----------------------------------------------------------------------------
-cdef struct SweepBatch:
-    # Rotations of up to ``capacity`` sweeps, not yet applied to Z.  Sweep j
-    # holds rotations i = hi[j]-1 down to lo[j] in cs/sn[j*n + i].
-    double* cs
-    double* sn
-    Py_ssize_t* lo
-    Py_ssize_t* hi
-    Py_ssize_t count
-    Py_ssize_t capacity
-    Py_ssize_t n
-    Py_ssize_t row_block   # rows of Z that take all stored sweeps together
-    bint simd              # use the AVX2 + FMA chain for groups of 16 rows
-
-
 cdef inline void _chain8(double* z, Py_ssize_t ldz, const double* cs,
                          const double* sn, Py_ssize_t lo, Py_ssize_t m) noexcept nogil:
     """One sweep's rotations applied to 8 consecutive rows starting at z.
@@ -511,6 +572,8 @@ cdef int _vectors_core(double* d, double* e, Py_ssize_t n,
     cdef double anorm, scale, inv
     cdef double p, g, r, c, s, f, b, t, a, cc, theta, tj, cj, sj
     cdef int status = 0
+    cdef int stalled = 0
+    cdef double floor2 = SAFMIN
 
     while l1 < n:
         if l1 > 0:
@@ -547,18 +610,22 @@ cdef int _vectors_core(double* d, double* e, Py_ssize_t n,
                 _flush_batch(batch, z, ldz, nrows, carry)
             _reverse_columns(z, ldz, nrows, l, lend)
         lstart = l
+        stalled = 0
+        floor2 = SAFMIN
 
         while l <= lend:
             m = l
             while m < lend:
                 t = e[m]
-                if t * t <= EPS2 * fabs(d[m] * d[m + 1]) + SAFMIN:
+                if t * t <= EPS2 * fabs(d[m] * d[m + 1]) + floor2:
                     break
                 m += 1
             if m < lend:
                 e[m] = 0.0
             if m == l:
                 l += 1
+                stalled = 0
+                floor2 = SAFMIN
                 continue
             if m == l + 1:
                 # 2x2 block [[a, b], [b, cc]]: one Jacobi rotation diagonalises
@@ -588,11 +655,16 @@ cdef int _vectors_core(double* d, double* e, Py_ssize_t n,
                     if batch.count == batch.capacity:
                         _flush_batch(batch, z, ldz, nrows, carry)
                 l += 2
+                stalled = 0
+                floor2 = SAFMIN
                 continue
             if sweeps >= max_sweeps:
                 status = 1
                 break
             sweeps += 1
+            stalled += 1
+            if stalled == STALL_SWEEPS:
+                floor2 = _stall_floor2(anorm * scale)
 
             # Wilkinson shift from the leading 2x2; it enters the sweep only
             # through g = d_m - shift, the start of the first rotation.
@@ -622,9 +694,14 @@ cdef int _vectors_core(double* d, double* e, Py_ssize_t n,
                     e[m] = 0.0
                     lowest = i + 1
                     break
-                inv = 1.0 / r
-                s = f * inv
-                c = g * inv
+                if r > 4.0 * SAFMIN:
+                    inv = 1.0 / r
+                    s = f * inv
+                    c = g * inv
+                else:
+                    # 1 / r would overflow for subnormal r: divide instead
+                    s = f / r
+                    c = g / r
                 g = d[i + 1] - p
                 r = (d[i] - g) * s + 2.0 * c * b
                 p = s * r

@@ -93,6 +93,25 @@ def _residuals(A, M, values, vectors, anorm, mnorm):
     return num / np.where(den > 0, den, 1.0)
 
 
+def _rayleigh_quotients(A, M, X, mapped):
+    """Eigenvalues as Rayleigh quotients ``x^T A x / x^T M x`` of the returned vectors.
+
+    ``shift + 1/nu`` carries the error of ``nu`` (about eps ||S||) divided by
+    ``nu^2``: with a shift very close to one eigenvalue the others lose
+    digits.  The Rayleigh quotient errs by ``||r||^2 / gap`` only.  Where the
+    quotient is not finite (a vector with no mass), the mapped value is kept.
+    """
+    if X.shape[1] == 0:
+        return mapped
+    AX = np.asarray(A @ X) if not isinstance(A, spla.LinearOperator) else A.matmat(X)
+    MX = X if M is None else np.asarray(M @ X)
+    num = np.einsum("ij,ij->j", X, AX)
+    den = np.einsum("ij,ij->j", X, MX)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        rq = num / den
+    return np.where(np.isfinite(rq) & (den > 0), rq, mapped)
+
+
 def _m_normalize(M, X):
     if X.shape[1] == 0:
         return X
@@ -225,14 +244,14 @@ def _shift_invert_run(A, M, k, S, selector, *, tol, basis, max_restarts, rng, st
         # removes components in the null space of M that the semi-inner
         # product cannot see.
         X = _m_normalize(M, out["products"] / nu)
-    values = S.eigenvalues_from(nu)
+    values = _rayleigh_quotients(A, M, X, S.eigenvalues_from(nu))
     residuals = _residuals(A, M, values, X, anorm, mnorm)
     info = {"shift": S.shift, "factorization": dict(S.factorization),
             "verification": out["verification"], "restarts": out["restarts"]}
     return values, X, residuals, out, info
 
 
-def _deflated_run(M, S, X, m, selector, *, tol, basis, max_restarts, rng, callback):
+def _deflated_run(A, M, S, X, m, selector, *, tol, basis, max_restarts, rng, callback):
     """The ``m`` wanted eigenpairs of ``S`` M-orthogonal to the columns of ``X``."""
     n = S.shape[0]
     space = VectorSpace(n, mass=_mass_apply(M))
@@ -251,7 +270,7 @@ def _deflated_run(M, S, X, m, selector, *, tol, basis, max_restarts, rng, callba
                                 callback=callback, verify=True, apply_block=apply_block)
     vectors = project(out["vectors"])
     vectors = _m_normalize(M, vectors)
-    return S.eigenvalues_from(out["values"]), vectors, out
+    return _rayleigh_quotients(A, M, vectors, S.eigenvalues_from(out["values"])), vectors, out
 
 
 def _dense_generalized(A, M, k, which):
@@ -364,7 +383,7 @@ def generalized_lowest(A, k=6, *, M=None, shift=None, tol=1e-8, basis=None, max_
             info["first_count_check"] = cc
             missing = cc.count - cc.expected
             extra_vals, extra_X, out2 = _deflated_run(
-                M, S, X, missing, selector, tol=tol, basis=basis, max_restarts=max_restarts,
+                A, M, S, X, missing, selector, tol=tol, basis=basis, max_restarts=max_restarts,
                 rng=rng, callback=callback)
             all_vals = np.concatenate([values, extra_vals])
             all_X = np.hstack([X, extra_X])

@@ -49,6 +49,10 @@ class TridiagonalConvergenceError(ArithmeticError):
             f"{n_converged} of {n} eigenvalues converged"
         )
 
+    def __reduce__(self):
+        # picklable (e.g. across process pools) despite the custom signature
+        return (type(self), (self.n, self.n_converged, self.converged_values, self.max_sweeps))
+
 
 def _as_vector(x, name):
     if type(x) is np.ndarray and x.dtype == _FLOAT and x.ndim == 1 and x.flags.c_contiguous:
