@@ -82,9 +82,10 @@ def _single_threaded_blas():
     The iteration's BLAS work is small (dgemv on a basis of tens of columns,
     projected problems of order tens): measured on a loaded 2-core machine a
     Gram-Schmidt pass of 1e5 x 20 took 48 ms with two OpenBLAS threads and
-    1.3 ms with one (bench/bench_products.py).  threadpoolctl is optional; it
-    changes the process's BLAS setting for the duration of the solve and
-    restores it afterwards.
+    1.3 ms with one (bench/bench_products.py).  threadpoolctl is a dependency
+    but imported guardedly (without it nothing is limited); it changes the
+    process's BLAS setting for the duration of the iteration and restores it
+    afterwards.
     """
     try:
         from threadpoolctl import threadpool_limits
