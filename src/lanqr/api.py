@@ -1,18 +1,19 @@
 """Public solver functions: the k lowest or highest eigenpairs of a symmetric operator."""
 from __future__ import annotations
 
-import contextlib
-import numbers
 import time
 import warnings
 
 import numpy as np
 import scipy.linalg
 
-from lanqr.operators import as_operator
 from lanqr.lanczos import REORTHOGONALIZATION
+from lanqr.operators import as_operator
+from lanqr.options import (NotConvergedWarning, default_basis, single_threaded_blas,
+                           validate_options)
 from lanqr.restart import FLOOR_FACTOR, thick_restart_lanczos
 from lanqr.result import EigenResult
+from lanqr.spectral import generalized_highest, generalized_lowest
 from lanqr.vectorspace import VectorSpace
 
 __all__ = ["lowest", "highest", "NotConvergedWarning", "default_basis"]
@@ -28,22 +29,6 @@ _EPS = np.finfo(np.float64).eps
 DEFAULT_REORTHOGONALIZATION = "full"
 
 
-class NotConvergedWarning(RuntimeWarning):
-    """Some requested eigenpairs did not reach the tolerance; the result says which."""
-
-
-def default_basis(k):
-    """The default largest basis size for ``k`` wanted pairs (chosen by measurement).
-
-    On the 2-D Laplacian 300x300 (lowest 10, tol 1e-8) a basis of 30, 40 and
-    60 took 11717, 6062 and 4385 operator applications; on the 3-D Laplacian
-    50^3 1559, 1377 and 1304; on the Heisenberg ring of 20 sites (lowest 4)
-    the size made no difference (130 +- 3).  Clustered spectra gain from a
-    larger basis; the memory is ``basis`` vectors of length n.
-    """
-    return max(4 * k + 10, 30)
-
-
 # Fewest active Lanczos vectors beside k locked pairs: the verification round
 # needs a few steps (VERIFY_MIN_STEPS) before it can certify anything.
 _MIN_ACTIVE = 5
@@ -53,51 +38,10 @@ _MIN_ACTIVE = 5
 _DENSE_MAX_ORDER = 200
 
 
-def _validate(k, tol, basis, max_restarts, start):
-    if isinstance(k, bool) or not isinstance(k, numbers.Integral):
-        raise ValueError(f"k must be an integer, got {k!r}")
-    if not isinstance(tol, numbers.Real) or not np.isfinite(tol) or not (0.0 < tol < 1.0):
-        raise ValueError(f"tol must be a number in (0, 1), got {tol!r}")
-    if basis is not None and (isinstance(basis, bool) or not isinstance(basis, numbers.Integral)):
-        raise ValueError(f"basis must be an integer, got {basis!r}")
-    if max_restarts is not None and (isinstance(max_restarts, bool)
-                                     or not isinstance(max_restarts, numbers.Integral)
-                                     or max_restarts < 0):
-        raise ValueError(f"max_restarts must be a non-negative integer, got {max_restarts!r}")
-    if start is not None:
-        start = np.asarray(start)
-        if np.iscomplexobj(start):
-            raise ValueError("start must be a real vector")
-        start = start.astype(np.float64).ravel()
-        if not np.all(np.isfinite(start)):
-            raise ValueError("start contains NaN or Inf")
-        if not np.any(start):
-            raise ValueError("start must not be the zero vector")
-    return start
-
-
-def _single_threaded_blas():
-    """Limit BLAS to one thread while the Lanczos iteration runs.
-
-    The iteration's BLAS work is small (dgemv on a basis of tens of columns,
-    projected problems of order tens): measured on a loaded 2-core machine a
-    Gram-Schmidt pass of 1e5 x 20 took 48 ms with two OpenBLAS threads and
-    1.3 ms with one (bench/bench_products.py).  threadpoolctl is a dependency
-    but imported guardedly (without it nothing is limited); it changes the
-    process's BLAS setting for the duration of the iteration and restores it
-    afterwards.
-    """
-    try:
-        from threadpoolctl import threadpool_limits
-    except ImportError:
-        return contextlib.nullcontext()
-    return threadpool_limits(limits=1, user_api="blas")
-
-
 def _solve(A, k, selector, tol, basis, max_restarts, seed, start, callback,
            reorthogonalization=None):
     t0 = time.perf_counter()
-    start = _validate(k, tol, basis, max_restarts, start)
+    start = validate_options(k, tol, basis, max_restarts, start)
     if reorthogonalization is None:
         reorthogonalization = DEFAULT_REORTHOGONALIZATION
     if reorthogonalization not in REORTHOGONALIZATION:
@@ -135,7 +79,7 @@ def _solve(A, k, selector, tol, basis, max_restarts, seed, start, callback,
         products = op.apply_block(vecs)
     else:
         basis = min(basis, n - 1)
-        with _single_threaded_blas():
+        with single_threaded_blas():
             out = thick_restart_lanczos(op.apply, space, n, k, selector, tol=tol, basis=basis,
                                         max_restarts=max_restarts, rng=rng, start=start,
                                         callback=callback, apply_block=op.apply_block,
@@ -291,7 +235,6 @@ def lowest(A, k=6, *, M=None, shift=None, tol=1e-8, basis=None, max_restarts=Non
            start=None, callback=None, reorthogonalization=None):
     if M is not None or shift is not None:
         _standard_only(reorthogonalization)
-        from lanqr.spectral import generalized_lowest
         return generalized_lowest(A, k, M=M, shift=shift, tol=tol, basis=basis,
                                   max_restarts=max_restarts, seed=seed, start=start,
                                   callback=callback)
@@ -303,7 +246,6 @@ def highest(A, k=6, *, M=None, tol=1e-8, basis=None, max_restarts=None, seed=Non
             callback=None, reorthogonalization=None):
     if M is not None:
         _standard_only(reorthogonalization)
-        from lanqr.spectral import generalized_highest
         return generalized_highest(A, k, M=M, tol=tol, basis=basis, max_restarts=max_restarts,
                                    seed=seed, start=start, callback=callback)
     return _solve(A, k, "highest", tol, basis, max_restarts, seed, start, callback,

@@ -23,7 +23,8 @@ import scipy.linalg
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
-from lanqr.api import NotConvergedWarning, _validate, default_basis
+from lanqr.options import (NotConvergedWarning, default_basis, single_threaded_blas,
+                           validate_options)
 from lanqr.inertia import InertiaError, check_mass_matrix, check_point, count_below
 from lanqr.operators import as_operator
 from lanqr.restart import thick_restart_lanczos, wanted_key
@@ -234,9 +235,10 @@ def _shift_invert_run(A, M, k, S, selector, *, tol, basis, max_restarts, rng, st
         # iteration ahead.
         start = S.matvec(rng.standard_normal(n))
     basis = min(basis, n - 1)
-    out = thick_restart_lanczos(S.matvec, space, n, k, selector, tol=tol, basis=basis,
-                                max_restarts=max_restarts, rng=rng, start=start,
-                                callback=callback, verify=verify, apply_block=S.matmat)
+    with single_threaded_blas():
+        out = thick_restart_lanczos(S.matvec, space, n, k, selector, tol=tol, basis=basis,
+                                    max_restarts=max_restarts, rng=rng, start=start,
+                                    callback=callback, verify=verify, apply_block=S.matmat)
     nu = out["values"]
     X = out["vectors"]
     if semidef:
@@ -265,9 +267,10 @@ def _deflated_run(A, M, S, X, m, selector, *, tol, basis, max_restarts, rng, cal
     apply_block = lambda Y: project(S.matmat(Y))
     basis = min(max(basis, 2 * m + 10), n - X.shape[1] - 1)
     start = project(S.matvec(rng.standard_normal(n)))
-    out = thick_restart_lanczos(apply, space, n, m, selector, tol=tol, basis=basis,
-                                max_restarts=max_restarts, rng=rng, start=start,
-                                callback=callback, verify=True, apply_block=apply_block)
+    with single_threaded_blas():
+        out = thick_restart_lanczos(apply, space, n, m, selector, tol=tol, basis=basis,
+                                    max_restarts=max_restarts, rng=rng, start=start,
+                                    callback=callback, verify=True, apply_block=apply_block)
     vectors = project(out["vectors"])
     vectors = _m_normalize(M, vectors)
     return _rayleigh_quotients(A, M, vectors, S.eigenvalues_from(out["values"])), vectors, out
@@ -316,7 +319,7 @@ def generalized_lowest(A, k=6, *, M=None, shift=None, tol=1e-8, basis=None, max_
         M-orthonormal vectors; residuals ``||A x - l M x|| / ((||A|| + |l| ||M||) ||x||)``.
     """
     t0 = time.perf_counter()
-    start = _validate(k, tol, basis, max_restarts, start)
+    start = validate_options(k, tol, basis, max_restarts, start)
     if solver is not None and shift is None:
         raise ValueError("a solver needs the shift it solves for")
     A, M, n = _check_inputs(A, M, allow_operator=solver is not None)
@@ -415,9 +418,10 @@ def _inverse_mass_solve(A, M, k, which, tol, basis, max_restarts, rng, start, ca
         apply = lambda x: Minv.solve(Aop.apply(x))
         apply_block = lambda X: Minv.solve(Aop.apply_block(X))
     space = VectorSpace(n, mass=_mass_apply(M))
-    out = thick_restart_lanczos(apply, space, n, k, which, tol=tol, basis=min(basis, n - 1),
-                                max_restarts=max_restarts, rng=rng, start=start,
-                                callback=callback, verify=True, apply_block=apply_block)
+    with single_threaded_blas():
+        out = thick_restart_lanczos(apply, space, n, k, which, tol=tol, basis=min(basis, n - 1),
+                                    max_restarts=max_restarts, rng=rng, start=start,
+                                    callback=callback, verify=True, apply_block=apply_block)
     values, X = out["values"], out["vectors"]
     res = _residuals(A, M, values, X, anorm, mnorm)
     cc = None
@@ -435,7 +439,7 @@ def generalized_highest(A, k=6, *, M=None, tol=1e-8, basis=None, max_restarts=No
     (it must be positive definite).  Vectors come back M-orthonormal.
     """
     t0 = time.perf_counter()
-    start = _validate(k, tol, basis, max_restarts, start)
+    start = validate_options(k, tol, basis, max_restarts, start)
     A, M, n = _check_inputs(A, M, allow_operator=True)
     if not (1 <= k < n):
         raise ValueError(f"k must satisfy 1 <= k < n = {n}, got k = {k}")
@@ -517,7 +521,7 @@ def nearest(A, k, target, *, M=None, shift_solver=None, tol=1e-8, basis=None, ma
     array([1.993729, 2.006271])
     """
     t0 = time.perf_counter()
-    start = _validate(k, tol, basis, max_restarts, start)
+    start = validate_options(k, tol, basis, max_restarts, start)
     target = check_point(target, "target")
     A, M, n = _check_inputs(A, M, allow_operator=shift_solver is not None)
     if not (1 <= k < n):
