@@ -8,13 +8,19 @@ applications.  The counter lives on the object, and each solve builds its own
 object, so two threads solving two problems never share state.
 
 Input is validated here, once: square, real, finite, symmetric.  float32 input
-is computed in float64.  The product is behind one method (``apply_block``) so
-a compiled CSR product can replace it without touching the callers.
+is computed in float64.  The product is behind one method (``apply_block``), so
+sparse input takes lanqr's compiled, multithreaded CSR product
+(:class:`lanqr.vecops.CsrProduct`, bitwise SciPy's ``A @ x``) without the
+callers knowing; every other kind of input keeps its own product.  The thread
+count is resolved once per operator (``n_threads``; None honours
+``OMP_NUM_THREADS``).
 """
 from __future__ import annotations
 
 import numpy as np
 import scipy.sparse as sp
+
+from lanqr.vecops import CsrProduct, resolve_threads
 
 __all__ = ["SymmetricOperator", "as_operator"]
 
@@ -40,6 +46,12 @@ class SymmetricOperator:
         A short description of the input (for messages and results).
     matrix : ndarray or sparse matrix or None
         The explicit matrix where there is one (the dense path uses it).
+    apply_dot : callable or None
+        ``apply_dot(x)`` returns ``(A @ x, x . (A @ x))`` from one pass (the
+        compiled CSR product fuses the Lanczos coefficient into the product);
+        None: the product, then a dot product.
+    n_threads : int
+        Threads the product uses (1 for products without threads).
 
     Attributes
     ----------
@@ -47,17 +59,30 @@ class SymmetricOperator:
         Number of vectors the operator has been applied to so far.
     """
 
-    def __init__(self, n, apply_block, kind, matrix=None):
+    def __init__(self, n, apply_block, kind, matrix=None, *, apply_dot=None, n_threads=1):
         self.n = int(n)
         self._apply_block = apply_block
+        self._apply_dot = apply_dot
         self.kind = kind
         self.matrix = matrix
+        self.n_threads = int(n_threads)
         self.applications = 0
 
     def apply(self, x):
         """Return ``A @ x`` for one vector (counted as one application)."""
         self.applications += 1
         return np.asarray(self._apply_block(x), dtype=np.float64).reshape(self.n)
+
+    def apply_dot(self, x):
+        """Return ``(A @ x, x . A x)`` for one vector (counted as one application).
+
+        The product is a fresh, writable, contiguous float64 array.
+        """
+        if self._apply_dot is None:
+            y = np.require(self.apply(x), dtype=np.float64, requirements=["C", "W"])
+            return y, float(x @ y)
+        self.applications += 1
+        return self._apply_dot(x)
 
     def apply_block(self, X):
         """Return ``A @ X`` for a block ``X`` of shape ``(n, b)`` (counted as ``b``)."""
@@ -110,7 +135,7 @@ def _dense_operator(A):
     return SymmetricOperator(A.shape[0], lambda X: A @ X, "dense", matrix=A)
 
 
-def _sparse_operator(A):
+def _sparse_operator(A, n_threads=None):
     _check_square(A.shape, "the sparse matrix")
     _check_real(A.dtype, "the sparse matrix")
     A = sp.csr_matrix(A, dtype=np.float64, copy=False)
@@ -128,7 +153,16 @@ def _sparse_operator(A):
         if asym > SYMMETRY_RTOL * size:
             raise ValueError(
                 f"the sparse matrix is not symmetric: ||A - A^T||_F / ||A||_F = {asym / size:.3g}")
-    return SymmetricOperator(A.shape[0], lambda X: A @ X, "sparse CSR", matrix=A)
+    # Values were checked above; the product checks the index arrays once.
+    product = CsrProduct(A, n_threads=n_threads, check_finite=False)
+
+    def apply_block(X):
+        # Both return fresh arrays: the solver updates products in place.
+        return product.matvec(X) if X.ndim == 1 else product.matmat(X)
+
+    return SymmetricOperator(A.shape[0], apply_block, "sparse CSR (compiled product)",
+                             matrix=A, apply_dot=product.matvec_dot,
+                             n_threads=product.n_threads)
 
 
 def _probe_symmetry(op, rng):
@@ -196,7 +230,7 @@ def _callable_operator(A, rng, check):
     return op
 
 
-def as_operator(A, *, seed=None, check=True):
+def as_operator(A, *, seed=None, check=True, n_threads=None):
     """Turn ``A`` into a :class:`SymmetricOperator`, validating it once.
 
     Parameters
@@ -208,6 +242,11 @@ def as_operator(A, *, seed=None, check=True):
     check : bool
         Whether to check symmetry (explicit matrices exactly, operators by a
         random probe) and finiteness.
+    n_threads : int or None
+        Threads for the compiled product of sparse input (resolved once here;
+        None: ``OMP_NUM_THREADS`` or the CPUs available, see
+        :func:`lanqr.vecops.default_threads`).  Products of small matrices
+        run on one thread whatever this says.
 
     Returns
     -------
@@ -216,14 +255,15 @@ def as_operator(A, *, seed=None, check=True):
     Raises
     ------
     ValueError
-        Non-square, complex, NaN/Inf entries, or not symmetric.
+        Non-square, complex, NaN/Inf entries, not symmetric, or a bad ``n_threads``.
     TypeError
         ``A`` is none of the accepted kinds.
     """
     if isinstance(A, SymmetricOperator):
         return A
+    n_threads = resolve_threads(n_threads)
     if sp.issparse(A):
-        return _sparse_operator(A)
+        return _sparse_operator(A, n_threads)
     if isinstance(A, np.ndarray) or isinstance(A, (list, tuple)):
         return _dense_operator(np.asarray(A))
     if hasattr(A, "shape") and hasattr(A, "matvec"):

@@ -41,8 +41,10 @@ import time
 import numpy as np
 import scipy.linalg
 
-from lanqr.lanczos import extend_basis, random_orthogonal_direction
+from lanqr.lanczos import (REORTHOGONALIZATION, PartialOrthogonality, extend_basis,
+                           random_orthogonal_direction)
 from lanqr.tridiagonal import tridiag_eigen
+from lanqr.vecops import rotate_basis
 
 __all__ = ["SELECTORS", "FLOOR_FACTOR", "thick_restart_lanczos", "wanted_key"]
 
@@ -148,7 +150,8 @@ def _arrow_to_tridiagonal(theta, s):
 
 def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_restarts, rng,
                           start=None, callback=None, keep_extra=None, verify=True,
-                          apply_block=None):
+                          apply_block=None, apply_dot=None, reorthogonalization="full",
+                          n_threads=1, measure_orthogonality=False):
     """Thick-restart Lanczos for the ``k`` wanted eigenpairs of a symmetric operator.
 
     Parameters
@@ -180,6 +183,17 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
     apply_block : callable or None
         ``apply_block(X)`` applies the operator to the columns of ``X`` (for
         the final Rayleigh-Ritz step); by default ``apply`` column by column.
+    apply_dot : callable or None
+        ``apply_dot(x)`` returns ``(A x, x . A x)`` in one pass (see
+        :func:`lanqr.lanczos.extend_basis`).
+    reorthogonalization : {"full", "partial"}
+        Full reorthogonalization at every step, or Simon's partial
+        reorthogonalization (Euclidean space only).
+    n_threads : int
+        Threads for the fused vector updates.
+    measure_orthogonality : bool
+        Record ``max |Q^T Q - I|`` of the whole basis before every restart and
+        at the end (one Gram matrix each time: for tests and diagnostics).
 
     Returns
     -------
@@ -187,7 +201,10 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
         ``values``, ``vectors`` (the best ``k`` in wanted order), ``estimates``,
         ``converged``, ``restarts``, ``history``, ``norm_estimate``,
         ``products`` (the operator applied to ``vectors``),
-        ``verification`` (statistics of the verification round).
+        ``verification`` (statistics of the verification round),
+        ``reorthogonalization`` (strategy and, for the partial one, the steps
+        and reorthogonalizations made), ``orthogonality`` (with
+        ``measure_orthogonality``: the largest ``max |Q^T Q - I|`` seen).
     """
     if selector not in SELECTORS:
         raise ValueError(f"unknown selector {selector!r}; use one of {SELECTORS}")
@@ -196,6 +213,17 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
         raise ValueError(f"need k < basis < n, got k={k}, basis={m}, n={n}")
     if keep_extra is None:
         keep_extra = max((m - k) // 2, 1)
+    if reorthogonalization not in REORTHOGONALIZATION:
+        raise ValueError(f"reorthogonalization must be one of {REORTHOGONALIZATION}, "
+                         f"got {reorthogonalization!r}")
+    partial = PartialOrthogonality(n, m) if reorthogonalization == "partial" else None
+    worst_orthogonality = [0.0]
+
+    def measure(columns):
+        if measure_orthogonality and columns:
+            G = Q[:, :columns].T @ Q[:, :columns]
+            worst_orthogonality[0] = max(worst_orthogonality[0],
+                                         float(np.max(np.abs(G - np.eye(columns)))))
 
     Q = np.empty((n, m + 1), order="F")
     alpha = np.zeros(m)
@@ -218,6 +246,12 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
     def counted_apply(x):
         applied[0] += 1
         return apply(x)
+
+    counted_apply_dot = None
+    if apply_dot is not None:
+        def counted_apply_dot(x):
+            applied[0] += 1
+            return apply_dot(x)
 
     state = {"anorm": 0.0, "phase": "main", "round_found": False, "certified": False}
     history = []
@@ -263,8 +297,12 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
     while True:
         state["certified"] = False
         offset = L
+        if partial is not None:
+            partial.start(Q[:, offset:], first)
         steps = extend_basis(counted_apply, space, Q, offset, first, m - L, alpha, beta, rng,
-                             norm_estimate=state["anorm"], after_step=after_step)
+                             norm_estimate=state["anorm"], after_step=after_step,
+                             apply_dot=counted_apply_dot, partial=partial, n_threads=n_threads)
+        measure(offset + steps + 1)
         if state["phase"] == "verify":
             verification["steps"] += steps - first
         j = steps
@@ -355,7 +393,8 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
             Zs = np.hstack([Zs, S[:, keep] @ Zk]) if nl else S[:, keep] @ Zk
         r = Q[:, L + j].copy()
         if Zs.shape[1]:
-            Q[:, L:L + Zs.shape[1]] = Q[:, L:L + j] @ Zs
+            # In place, in row chunks: no second n x p array.
+            rotate_basis(Q[:, L:L + j], Zs)
         if nl:
             locked_vals = np.concatenate([locked_vals, theta[lock]])
             L += nl
@@ -408,6 +447,11 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
         "verification": verification,
         "exhausted": exhausted,
         "verified": bool(state["phase"] == "verify" and state["certified"]),
+        "reorthogonalization": {
+            "strategy": reorthogonalization,
+            "steps": partial.steps if partial is not None else None,
+            "reorthogonalizations": partial.reorthogonalizations if partial is not None else None},
+        "orthogonality": worst_orthogonality[0] if measure_orthogonality else None,
     }
 
 
