@@ -399,13 +399,43 @@ def graph_laplacian(adjacency):
     return (sp.diags(degree) - W).tocsr()
 
 
-def random_geometric_graph(nodes, *, mean_degree=8.0, seed=0):
+def random_geometric_graph(nodes, *, mean_degree=8.0, seed=0, largest_component=False):
     """Laplacian of a random geometric graph in the unit square.
 
     Points uniform in [0, 1]^2, joined when closer than the radius that gives
-    about ``mean_degree`` neighbours.  Isolated points give extra zero
-    eigenvalues, as in real meshes and sensor networks.
+    about ``mean_degree`` neighbours.  Isolated points and small clusters
+    give extra zero eigenvalues (one per connected component), as in real
+    meshes and sensor networks.
+
+    Parameters
+    ----------
+    nodes : int
+        Number of random points.
+    mean_degree : float, optional
+        Expected number of neighbours of a point away from the border.
+    seed : int, optional
+        Seed of the point positions; the same seed gives the same graph.
+    largest_component : bool, optional
+        When True, return the Laplacian of the largest connected component
+        only (its nodes in their original order; a tie in size goes to the
+        component holding the lowest-numbered node).  A connected graph has
+        the single zero eigenvalue whose next neighbour is the Fiedler
+        value, which is what a spectral partitioning asks for.  Default
+        False: the whole graph, every component.
+
+    Returns
+    -------
+    scipy.sparse.csr_matrix
+        The graph Laplacian, of order ``nodes`` (or the size of the largest
+        component).
+
+    Examples
+    --------
+    >>> L = random_geometric_graph(2000, seed=0, largest_component=True)
+    >>> L.shape[0] < 2000
+    True
     """
+    from scipy.sparse.csgraph import connected_components
     from scipy.spatial import cKDTree
 
     rng = np.random.default_rng(seed)
@@ -413,7 +443,15 @@ def random_geometric_graph(nodes, *, mean_degree=8.0, seed=0):
     radius = np.sqrt(mean_degree / (np.pi * nodes))
     pairs = cKDTree(pts).query_pairs(radius, output_type="ndarray")
     W = sp.coo_matrix((np.ones(len(pairs)), (pairs[:, 0], pairs[:, 1])), shape=(nodes, nodes))
-    return graph_laplacian(W + W.T)
+    W = (W + W.T).tocsr()
+    if largest_component:
+        _, labels = connected_components(W, directed=False)
+        sizes = np.bincount(labels)
+        # argmax takes the first maximum: the label of the lowest-numbered
+        # node among equal sizes (labels are numbered in node order).
+        keep = np.flatnonzero(labels == int(np.argmax(sizes)))
+        W = W[keep][:, keep]
+    return graph_laplacian(W)
 
 
 def disjoint_paths_laplacian(lengths):
