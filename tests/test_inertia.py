@@ -196,3 +196,22 @@ def test_sturm_count_on_wilkinson_matrix_close_pair():
     assert sturm_count(d, e, 10.7461941829033) == 19
     assert sturm_count(d, e, 10.74619418290336) == 20
     assert sturm_count(d, e, 10.7461941829035) == 21
+
+
+@pytest.mark.parametrize("n", [4000, 30000])
+def test_count_at_a_vanishing_leading_minor_is_certified_by_bracketing(n):
+    # tridiag(-1, 2, -1) - I has a singular leading 2x2 minor (and every third
+    # one after it), so diagonal pivoting meets zero pivots although x = 1 is
+    # no eigenvalue for these n.  Closed form: reference-values.md §4
+    # (Strang 2007, from memory; verified numerically there).
+    A = problems.laplacian_1d(n)
+    expected = int(np.sum(problems.laplacian_1d_values(n) < 1.0))
+    assert count_below(A, 1.0) == expected
+    assert count_below(A, 1.0 - 7e-12) == expected
+
+
+def test_count_at_an_exact_eigenvalue_is_refused():
+    # Odd order: 2 is an eigenvalue of tridiag(-1, 2, -1) exactly (j = (n+1)/2
+    # in the closed form of reference-values.md §4).
+    with pytest.raises(InertiaError, match="within"):
+        count_below(problems.laplacian_1d(59), 2.0)
