@@ -18,7 +18,6 @@ Usage::
 from __future__ import annotations
 
 import argparse
-import multiprocessing as mp
 import os
 import platform
 import statistics
@@ -31,6 +30,7 @@ import scipy
 import scipy.sparse.linalg as spla
 
 import lanqr
+from _harness import max_error, relative_residuals, run_capped, zero_multiplicity_values
 from lanqr.problems import (heisenberg_ring, laplacian_grid, laplacian_grid_values,
                             random_geometric_graph)
 
@@ -125,46 +125,6 @@ def _child(conn, side, A, k, tol, memory):
     conn.close()
 
 
-def run_capped(side, A, k, tol, cap, memory=False):
-    ctx = mp.get_context("fork")
-    parent, child = ctx.Pipe(duplex=False)
-    p = ctx.Process(target=_child, args=(child, side, A, k, tol, memory))
-    p.start()
-    child.close()
-    if parent.poll(cap):
-        msg = parent.recv()
-        p.join()
-        return msg
-    p.kill()
-    p.join()
-    return ("timeout", cap)
-
-
-def relative_residuals(A, vals, vecs, tol, anorm):
-    """||A x - t x|| / max(|t|, floor), the definition lanqr documents
-    (with the Gershgorin bound for ||A||, the same for both sides)."""
-    floor = 100 * np.finfo(float).eps * anorm / tol
-    R = A @ vecs - vecs * vals
-    return np.linalg.norm(R, axis=0) / np.maximum(np.abs(vals), floor)
-
-
-def max_error(vals, exact, anorm):
-    """Relative error per value; for an exact zero, |theta| / ||A||."""
-    if exact is None:
-        return float("nan")
-    m = len(exact)
-    scale = np.where(exact == 0.0, anorm, np.abs(exact))
-    return float(np.max(np.abs(vals[:m] - exact) / scale))
-
-
-def zero_multiplicity_values(A, k):
-    """A graph Laplacian has eigenvalue 0 once per connected component (common
-    practice; reference-values.md §4 graph Laplacians); components by SciPy."""
-    from scipy.sparse.csgraph import connected_components
-    ncomp = connected_components(A, directed=False)[0]
-    return np.zeros(min(ncomp, k)), ncomp
-
-
 def main(argv=None):
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--quick", action="store_true", help="smaller sizes")
@@ -213,7 +173,7 @@ def main(argv=None):
             times, out, peak = [], None, float("nan")
             for rep in range(max(args.repeats, 1) + (1 if args.repeats > 1 else 0)):
                 traced = rep == 0
-                msg = run_capped(side, A, k, args.tol, case_cap, memory=traced)
+                msg = run_capped(_child, (side, A, k, args.tol, traced), case_cap)
                 if msg[0] != "ok":
                     out = msg
                     break
