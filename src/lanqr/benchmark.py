@@ -126,7 +126,7 @@ def _scipy_solve(problem, tol, seed, count):
     """eigsh with the transformation that matches what lanqr is asked to do."""
     A, M, k = problem.A, problem.M, problem.k
     n = A.shape[0]
-    v0 = np.random.default_rng(seed).standard_normal(n)
+    start_vector = np.random.default_rng(seed).standard_normal(n)
     sigma = problem.target if problem.mode == "nearest" else problem.shift
     counter = None
     if sigma is not None:
@@ -134,16 +134,16 @@ def _scipy_solve(problem, tol, seed, count):
             shifted = (A - sigma * M if M is not None else A - sigma * sp.identity(n, format="csr")).tocsc()
             lu = sla.splu(shifted)
             counter = _Counting(lu.solve, n)
-            w, V = sla.eigsh(A, k, M=M, sigma=sigma, which="LM", OPinv=counter, tol=tol, v0=v0)
+            w, V = sla.eigsh(A, k, M=M, sigma=sigma, which="LM", OPinv=counter, tol=tol, v0=start_vector)
         else:
-            w, V = sla.eigsh(A, k, M=M, sigma=sigma, which="LM", tol=tol, v0=v0)
+            w, V = sla.eigsh(A, k, M=M, sigma=sigma, which="LM", tol=tol, v0=start_vector)
     else:
         which = "LA" if problem.mode == "highest" else "SA"
         op = A
         if count:
             counter = _Counting(lambda x: A @ x, n)
             op = counter
-        w, V = sla.eigsh(op, k, M=M, which=which, tol=tol, v0=v0)
+        w, V = sla.eigsh(op, k, M=M, which=which, tol=tol, v0=start_vector)
     order = np.argsort(w)
     return w[order], V[:, order], (counter.count if counter is not None else None)
 
