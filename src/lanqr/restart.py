@@ -36,7 +36,6 @@ B. N. Parlett, The Symmetric Eigenvalue Problem, SIAM 1998 (residual bounds).
 """
 from __future__ import annotations
 
-import time
 
 import numpy as np
 import scipy.linalg
