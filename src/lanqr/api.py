@@ -9,8 +9,8 @@ import scipy.linalg
 
 from lanqr.lanczos import REORTHOGONALIZATION
 from lanqr.operators import as_operator
-from lanqr.options import (NotConvergedWarning, default_basis, single_threaded_blas,
-                           validate_options)
+from lanqr.options import (NotConvergedWarning, default_basis, resolve_sizes,
+                           single_threaded_blas, validate_options)
 from lanqr.restart import FLOOR_FACTOR, thick_restart_lanczos
 from lanqr.result import EigenResult
 from lanqr.spectral import generalized_highest, generalized_lowest
@@ -50,19 +50,9 @@ def _solve(A, k, selector, tol, basis, max_restarts, seed, start, callback,
     rng = np.random.default_rng(seed)
     op = as_operator(A, seed=rng)
     n = op.n
-    if not (1 <= k < n):
-        raise ValueError(f"k must satisfy 1 <= k < n = {n}, got k = {k}")
+    basis, max_restarts = resolve_sizes(k, n, basis, max_restarts, min_active=_MIN_ACTIVE)
     if start is not None and start.size != n:
         raise ValueError(f"start has length {start.size}, expected n = {n}")
-    if basis is None:
-        basis = default_basis(k)
-    basis = int(basis)
-    if basis < k + _MIN_ACTIVE:
-        raise ValueError(f"basis must be at least k + {_MIN_ACTIVE} = {k + _MIN_ACTIVE} "
-                         f"(room for an active Lanczos basis beside the k locked pairs), "
-                         f"got basis = {basis}")
-    if max_restarts is None:
-        max_restarts = 1000
     space = VectorSpace(n)
     info = {}
 

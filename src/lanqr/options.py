@@ -10,7 +10,11 @@ import numbers
 
 import numpy as np
 
-__all__ = ["NotConvergedWarning", "default_basis", "validate_options", "single_threaded_blas"]
+__all__ = ["NotConvergedWarning", "default_basis", "validate_options", "resolve_sizes",
+           "single_threaded_blas"]
+
+#: Restart bound when the caller gives none.
+DEFAULT_MAX_RESTARTS = 1000
 
 
 class NotConvergedWarning(RuntimeWarning):
@@ -68,3 +72,23 @@ def single_threaded_blas():
     except ImportError:
         return contextlib.nullcontext()
     return threadpool_limits(limits=1, user_api="blas")
+
+
+def resolve_sizes(k, n, basis, max_restarts, *, min_active=1):
+    """Check ``k`` against the order ``n`` and fill in the basis size and restart bound.
+
+    ``min_active`` is the fewest active Lanczos vectors the caller needs beside
+    ``k`` locked pairs.  Returns ``(basis, max_restarts)``.
+    """
+    if not (1 <= k < n):
+        raise ValueError(f"k must satisfy 1 <= k < n = {n}, got k = {k}")
+    basis = default_basis(k) if basis is None else int(basis)
+    if basis < k + min_active:
+        if min_active == 1:
+            raise ValueError(f"basis must exceed k = {k}, got basis = {basis}")
+        raise ValueError(f"basis must be at least k + {min_active} = {k + min_active} "
+                         f"(room for an active Lanczos basis beside the k locked pairs), "
+                         f"got basis = {basis}")
+    if max_restarts is None:
+        max_restarts = DEFAULT_MAX_RESTARTS
+    return basis, max_restarts

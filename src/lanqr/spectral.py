@@ -23,8 +23,8 @@ import scipy.linalg
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
-from lanqr.options import (NotConvergedWarning, default_basis, single_threaded_blas,
-                           validate_options)
+from lanqr.options import (NotConvergedWarning, default_basis, resolve_sizes,
+                           single_threaded_blas, validate_options)
 from lanqr.inertia import InertiaError, check_mass_matrix, check_point, count_below
 from lanqr.operators import as_operator
 from lanqr.restart import thick_restart_lanczos, wanted_key
@@ -325,12 +325,7 @@ def generalized_lowest(A, k=6, *, M=None, shift=None, tol=1e-8, basis=None, max_
     A, M, n = _check_inputs(A, M, allow_operator=solver is not None)
     if shift is not None:
         shift = check_point(shift, "shift")
-    if not (1 <= k < n):
-        raise ValueError(f"k must satisfy 1 <= k < n = {n}, got k = {k}")
-    basis = default_basis(k) if basis is None else int(basis)
-    if basis <= k:
-        raise ValueError(f"basis must exceed k = {k}, got basis = {basis}")
-    max_restarts = 1000 if max_restarts is None else max_restarts
+    basis, max_restarts = resolve_sizes(k, n, basis, max_restarts)
     rng = np.random.default_rng(seed)
     anorm, mnorm = _norm1(A), _norm1(M)
     info = {"norm_estimates": (anorm, mnorm)}
@@ -441,12 +436,7 @@ def generalized_highest(A, k=6, *, M=None, tol=1e-8, basis=None, max_restarts=No
     t0 = time.perf_counter()
     start = validate_options(k, tol, basis, max_restarts, start)
     A, M, n = _check_inputs(A, M, allow_operator=True)
-    if not (1 <= k < n):
-        raise ValueError(f"k must satisfy 1 <= k < n = {n}, got k = {k}")
-    basis = default_basis(k) if basis is None else int(basis)
-    if basis <= k:
-        raise ValueError(f"basis must exceed k = {k}, got basis = {basis}")
-    max_restarts = 1000 if max_restarts is None else max_restarts
+    basis, max_restarts = resolve_sizes(k, n, basis, max_restarts)
     rng = np.random.default_rng(seed)
     anorm, mnorm = _norm1(A), _norm1(M)
     info = {"norm_estimates": (anorm, mnorm)}
@@ -524,12 +514,7 @@ def nearest(A, k, target, *, M=None, shift_solver=None, tol=1e-8, basis=None, ma
     start = validate_options(k, tol, basis, max_restarts, start)
     target = check_point(target, "target")
     A, M, n = _check_inputs(A, M, allow_operator=shift_solver is not None)
-    if not (1 <= k < n):
-        raise ValueError(f"k must satisfy 1 <= k < n = {n}, got k = {k}")
-    basis = default_basis(k) if basis is None else int(basis)
-    if basis <= k:
-        raise ValueError(f"basis must exceed k = {k}, got basis = {basis}")
-    max_restarts = 1000 if max_restarts is None else max_restarts
+    basis, max_restarts = resolve_sizes(k, n, basis, max_restarts)
     rng = np.random.default_rng(seed)
     anorm, mnorm = _norm1(A), _norm1(M)
     info = {"target": target, "norm_estimates": (anorm, mnorm)}
