@@ -7,7 +7,11 @@ from __future__ import annotations
 
 import multiprocessing as mp
 
+import time
+import tracemalloc
+
 import numpy as np
+import scipy.sparse.linalg as spla
 
 
 def run_capped(target, args, cap):
@@ -49,3 +53,37 @@ def zero_multiplicity_values(A, k):
     from scipy.sparse.csgraph import connected_components
     ncomp = connected_components(A, directed=False)[0]
     return np.zeros(min(ncomp, k)), ncomp
+
+
+class Counting(spla.LinearOperator):
+    """A sparse matrix as a LinearOperator that counts vectors applied."""
+
+    def __init__(self, A):
+        super().__init__(dtype=np.float64, shape=A.shape)
+        self.A = A
+        self.count = 0
+
+    def _matvec(self, x):
+        self.count += 1
+        return self.A @ x
+
+    def _matmat(self, X):
+        self.count += X.shape[1]
+        return self.A @ X
+
+
+def timed_child(conn, solve, side, A, k, tol, memory):
+    """Child process body: time ``solve(side, A, k, tol)`` and send the outcome."""
+    try:
+        if memory:
+            tracemalloc.start()
+        t0 = time.perf_counter()
+        vals, vecs, count = solve(side, A, k, tol)
+        elapsed = time.perf_counter() - t0
+        peak = tracemalloc.get_traced_memory()[1] if memory else 0
+        if memory:
+            tracemalloc.stop()
+        conn.send(("ok", elapsed, vals, vecs, count, peak))
+    except Exception as exc:  # report, do not hang
+        conn.send(("error", repr(exc)))
+    conn.close()

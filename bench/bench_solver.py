@@ -23,14 +23,14 @@ import platform
 import statistics
 import sys
 import time
-import tracemalloc
 
 import numpy as np
 import scipy
 import scipy.sparse.linalg as spla
 
 import lanqr
-from _harness import max_error, relative_residuals, run_capped, zero_multiplicity_values
+from _harness import (Counting, max_error, relative_residuals, run_capped, timed_child,
+                      zero_multiplicity_values)
 from lanqr.problems import (heisenberg_ring, laplacian_grid, laplacian_grid_values,
                             random_geometric_graph)
 
@@ -79,23 +79,6 @@ def cases(quick):
 CASE_CAPS = {"rgg": 300.0}
 
 
-class Counting(spla.LinearOperator):
-    """A sparse matrix as a LinearOperator that counts vectors applied."""
-
-    def __init__(self, A):
-        super().__init__(dtype=np.float64, shape=A.shape)
-        self.A = A
-        self.count = 0
-
-    def _matvec(self, x):
-        self.count += 1
-        return self.A @ x
-
-    def _matmat(self, X):
-        self.count += X.shape[1]
-        return self.A @ X
-
-
 def solve(side, A, k, tol):
     """Run one solver; return (values, vectors, operator applications)."""
     if side == "lanqr":
@@ -107,22 +90,6 @@ def solve(side, A, k, tol):
     w, V = spla.eigsh(op, k, which="SA", v0=v0, **kw)
     order = np.argsort(w)
     return w[order], V[:, order], op.count
-
-
-def _child(conn, side, A, k, tol, memory):
-    try:
-        if memory:
-            tracemalloc.start()
-        t0 = time.perf_counter()
-        vals, vecs, count = solve(side, A, k, tol)
-        elapsed = time.perf_counter() - t0
-        peak = tracemalloc.get_traced_memory()[1] if memory else 0
-        if memory:
-            tracemalloc.stop()
-        conn.send(("ok", elapsed, vals, vecs, count, peak))
-    except Exception as exc:  # report, do not hang
-        conn.send(("error", repr(exc)))
-    conn.close()
 
 
 def main(argv=None):
@@ -173,7 +140,7 @@ def main(argv=None):
             times, out, peak = [], None, float("nan")
             for rep in range(max(args.repeats, 1) + (1 if args.repeats > 1 else 0)):
                 traced = rep == 0
-                msg = run_capped(_child, (side, A, k, args.tol, traced), case_cap)
+                msg = run_capped(timed_child, (solve, side, A, k, args.tol, traced), case_cap)
                 if msg[0] != "ok":
                     out = msg
                     break

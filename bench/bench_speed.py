@@ -43,14 +43,14 @@ import statistics
 import subprocess
 import sys
 import time
-import tracemalloc
 
 import numpy as np
 import scipy
 import scipy.sparse.linalg as spla
 
 import lanqr
-from _harness import max_error, relative_residuals, run_capped, zero_multiplicity_values
+from _harness import (Counting, max_error, relative_residuals, run_capped, timed_child,
+                      zero_multiplicity_values)
 from lanqr.api import default_basis
 from lanqr.problems import (heisenberg_ring, laplacian_grid, laplacian_grid_values,
                             random_geometric_graph)
@@ -106,23 +106,6 @@ def overhead_cases(quick):
             "overhead-lap2d1000": _grid((1000, 1000), 6, 3000)}
 
 
-class Counting(spla.LinearOperator):
-    """A sparse matrix as a LinearOperator that counts vectors applied."""
-
-    def __init__(self, A):
-        super().__init__(dtype=np.float64, shape=A.shape)
-        self.A = A
-        self.count = 0
-
-    def _matvec(self, x):
-        self.count += 1
-        return self.A @ x
-
-    def _matmat(self, X):
-        self.count += X.shape[1]
-        return self.A @ X
-
-
 #: lanqr keywords for every solve (set from the command line).
 LANQR_OPTIONS = {}
 
@@ -142,28 +125,12 @@ def solve(side, A, k, tol):
     return w[order], V[:, order], op.count
 
 
-def _child(conn, side, A, k, tol, memory):
-    try:
-        if memory:
-            tracemalloc.start()
-        t0 = time.perf_counter()
-        vals, vecs, count = solve(side, A, k, tol)
-        elapsed = time.perf_counter() - t0
-        peak = tracemalloc.get_traced_memory()[1] if memory else 0
-        if memory:
-            tracemalloc.stop()
-        conn.send(("ok", elapsed, vals, vecs, count, peak))
-    except Exception as exc:  # report, do not hang
-        conn.send(("error", repr(exc)))
-    conn.close()
-
-
 def measure_side(side, A, k, tol, repeats, cap):
     """Median wall time over ``repeats`` untraced runs plus one traced run (memory)."""
     times, out, peak = [], None, float("nan")
     for rep in range(repeats + 1):
         traced = rep == 0
-        msg = run_capped(_child, (side, A, k, tol, traced), cap)
+        msg = run_capped(timed_child, (solve, side, A, k, tol, traced), cap)
         if msg[0] != "ok":
             return msg, None, peak
         if traced:
