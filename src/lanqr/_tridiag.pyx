@@ -187,6 +187,20 @@ cdef inline double _stall_floor2(double block_norm) noexcept nogil:
     return t * t + SAFMIN
 
 
+cdef inline double _block_max_norm(const double* d, const double* e, Py_ssize_t l,
+                                   Py_ssize_t lend) noexcept nogil:
+    """Largest magnitude in the block d[l..lend], e[l..lend-1] (sets its scaling)."""
+    cdef double anorm = 0.0
+    cdef Py_ssize_t i
+    for i in range(l, lend + 1):
+        if fabs(d[i]) > anorm:
+            anorm = fabs(d[i])
+    for i in range(l, lend):
+        if fabs(e[i]) > anorm:
+            anorm = fabs(e[i])
+    return anorm
+
+
 cdef inline Py_ssize_t _next_split(const double* d, double* e, Py_ssize_t l1,
                                    Py_ssize_t n) noexcept nogil:
     """End of the unreduced block that starts at l1; zeroes the negligible e."""
@@ -276,15 +290,7 @@ cdef int _values_core(double* d, double* e, Py_ssize_t n,
         if lend == l:
             continue
 
-        anorm = 0.0
-        for i in range(l, lend + 1):
-            t = fabs(d[i])
-            if t > anorm:
-                anorm = t
-        for i in range(l, lend):
-            t = fabs(e[i])
-            if t > anorm:
-                anorm = t
+        anorm = _block_max_norm(d, e, l, lend)
         if anorm == 0.0:
             continue
         scale = _block_scale(anorm)
@@ -585,15 +591,7 @@ cdef int _vectors_core(double* d, double* e, Py_ssize_t n,
         if lend == l:
             continue
 
-        anorm = 0.0
-        for i in range(l, lend + 1):
-            t = fabs(d[i])
-            if t > anorm:
-                anorm = t
-        for i in range(l, lend):
-            t = fabs(e[i])
-            if t > anorm:
-                anorm = t
+        anorm = _block_max_norm(d, e, l, lend)
         if anorm == 0.0:
             continue
         scale = _block_scale(anorm)
