@@ -531,3 +531,88 @@ def test_random_shapes_bitwise(seed):
         product = CsrProduct(A, n_threads=n_threads, serial_below=0)
         np.testing.assert_array_equal(product.matvec(x), A @ x)
         np.testing.assert_array_equal(product.matmat(X), A @ X)
+
+
+# --- symmetry check and Simon's recurrence ---------------------------------
+
+def _dense_asymmetry(A):
+    """Reference: NumPy on the dense matrix, ||A - A^T||_F / max |a_ij|."""
+    D = A.toarray()
+    scale = np.max(np.abs(D))
+    return np.linalg.norm(D - D.T) / scale if scale else 0.0
+
+
+@pytest.mark.parametrize("index_dtype", [np.int32, np.int64])
+@pytest.mark.parametrize("seed", range(4))
+def test_csr_asymmetry_matches_dense(index_dtype, seed):
+    from lanqr.vecops import csr_asymmetry
+    rng = np.random.default_rng(seed)
+    n = 60
+    B = sp.random(n, n, density=0.08, random_state=seed, format="csr")
+    S = (B + B.T).tocsr()
+    # Symmetric, one-sided (pairs stored on one side only), and a perturbed
+    # symmetric matrix with both sides stored.
+    P = S.copy()
+    P.data = P.data + 1e-3 * rng.standard_normal(P.nnz)
+    for A in (S, B, P):
+        A = _with_index_dtype(A, index_dtype)
+        assert csr_asymmetry(A.copy()) == pytest.approx(_dense_asymmetry(A), rel=1e-12, abs=1e-15)
+    assert csr_asymmetry(_with_index_dtype(S, index_dtype)) == 0.0
+
+
+def test_csr_asymmetry_unsorted_duplicates_empty_rows():
+    from lanqr.vecops import csr_asymmetry
+    # Row 1 empty; row 0 stores (0, 2) twice and out of order; the mirror
+    # (2, 0) holds their sum, so the matrix is symmetric.
+    indptr = np.array([0, 3, 3, 4])
+    indices = np.array([2, 0, 2])
+    data = np.array([1.0, 5.0, 2.0])
+    A = sp.csr_matrix((np.r_[data, 3.0], np.r_[indices, 0], indptr), shape=(3, 3))
+    assert csr_asymmetry(A) == 0.0
+    A[2, 0] = 4.0
+    assert csr_asymmetry(A.tocsr()) == pytest.approx(_dense_asymmetry(A), rel=1e-12)
+    assert csr_asymmetry(sp.csr_matrix((0, 0))) == 0.0
+    assert csr_asymmetry(sp.csr_matrix((4, 4))) == 0.0
+
+
+def test_csr_asymmetry_rejects_bad_input():
+    from lanqr.vecops import csr_asymmetry
+    with pytest.raises(ValueError, match="square"):
+        csr_asymmetry(sp.csr_matrix(np.ones((2, 3))))
+    with pytest.raises(ValueError, match="CSR"):
+        csr_asymmetry(np.eye(3))
+    with pytest.raises(ValueError, match="float64"):
+        csr_asymmetry(sp.csr_matrix(np.eye(3, dtype=np.float32)))
+
+
+def _omega_reference(cur, prev, alpha, beta, j, beta_j, eps1, local):
+    """Simon's recurrence written out in NumPy (Simon 1984, eq. 4.1)."""
+    new = np.zeros_like(cur)
+    k = np.arange(j)
+    t = beta[k] * cur[k + 1] + (alpha[k] - alpha[j]) * cur[k]
+    t[1:] += beta[k[1:] - 1] * cur[k[1:] - 1]
+    t -= beta[j - 1] * prev[k] if j > 0 else 0.0
+    noise = eps1 * (np.hypot(alpha[k], beta[k]) + np.hypot(alpha[j], beta_j))
+    t += np.where(t >= 0, noise, -noise)
+    new[:j] = np.abs(t) / beta_j
+    new[j] = local
+    new[j + 1] = 1.0
+    return new, (float(new[:j].max()) if j else 0.0)
+
+
+@pytest.mark.parametrize("j", [0, 1, 2, 7, 18])
+def test_omega_advance_matches_numpy(j):
+    from lanqr.vecops import omega_advance
+    rng = np.random.default_rng(j)
+    size = 21
+    alpha = rng.standard_normal(size)
+    beta = rng.uniform(0.5, 2.0, size)
+    cur = np.abs(rng.standard_normal(size)) * 1e-10
+    prev = np.abs(rng.standard_normal(size)) * 1e-10
+    new = np.full(size, np.nan)
+    worst = omega_advance(new, cur, prev, alpha, beta, j, 1.3, 1e-15, 2e-16)
+    ref, ref_worst = _omega_reference(cur, prev, alpha, beta, j, 1.3, 1e-15, 2e-16)
+    np.testing.assert_array_equal(new, ref)
+    assert worst == ref_worst
+    with pytest.raises(ValueError, match="inconsistent"):
+        omega_advance(new[:j + 1], cur, prev, alpha, beta, j, 1.3, 1e-15, 2e-16)

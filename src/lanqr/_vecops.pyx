@@ -37,7 +37,7 @@
 from libc.stdint cimport int32_t, int64_t
 from cpython.mem cimport PyMem_RawMalloc, PyMem_RawFree
 from libc.string cimport memcpy
-from libc.math cimport sqrt
+from libc.math cimport sqrt, fabs, hypot
 from cython.parallel cimport parallel, prange
 
 from scipy.linalg.cython_blas cimport dgemv, dgemm, dnrm2
@@ -345,6 +345,92 @@ def csr_matmat_f(const index_t[::1] indptr, const index_t[::1] indices,
     with nogil:
         _csr_matmat(&indptr[0], &indices[0], &data[0], &X[0, 0], X.shape[0],
                     &Y[0, 0], n_rows, n_rows, k, False, n_threads)
+
+
+# ----------------------------------------------------------------------------
+# Symmetry of a CSR matrix
+# ----------------------------------------------------------------------------
+
+cdef double _csr_asymmetry(const index_t* indptr, const index_t* indices,
+                           const double* data, Py_ssize_t n_rows,
+                           double inv_scale) noexcept nogil:
+    # Every stored a_ij (i != j) looks up a_ji by binary search in row j's
+    # sorted indices.  A pair stored on both sides is met twice, once from
+    # each side; a pair stored on one side only is met once and counted
+    # twice, so the sum is exactly ||A - A^T||_F^2 (of the scaled matrix).
+    cdef Py_ssize_t i, jj, j, lo, hi, mid, end
+    cdef double a, d, acc = 0.0
+    for i in range(n_rows):
+        for jj in range(indptr[i], indptr[i + 1]):
+            j = indices[jj]
+            if j == i:
+                continue
+            a = data[jj] * inv_scale
+            lo = indptr[j]
+            end = indptr[j + 1]
+            hi = end
+            while lo < hi:
+                mid = lo + (hi - lo) // 2
+                if indices[mid] < i:
+                    lo = mid + 1
+                else:
+                    hi = mid
+            if lo < end and indices[lo] == i:
+                d = a - data[lo] * inv_scale
+                acc = acc + d * d
+            else:
+                acc = acc + 2.0 * a * a
+    return acc
+
+
+def csr_asymmetry(const index_t[::1] indptr, const index_t[::1] indices,
+                  const double[::1] data, double scale):
+    """||A - A^T||_F / scale for a square CSR matrix with sorted, unique indices."""
+    cdef Py_ssize_t n_rows = indptr.shape[0] - 1
+    cdef double acc = 0.0
+    if n_rows <= 0 or data.shape[0] == 0:
+        return 0.0
+    with nogil:
+        acc = _csr_asymmetry(&indptr[0], &indices[0], &data[0], n_rows, 1.0 / scale)
+    return sqrt(acc)
+
+
+# ----------------------------------------------------------------------------
+# Simon's omega recurrence (partial reorthogonalization)
+# ----------------------------------------------------------------------------
+
+def omega_advance(double[::1] new, const double[::1] cur, const double[::1] prev,
+                  const double[::1] alpha, const double[::1] beta, Py_ssize_t j,
+                  double beta_j, double eps1, double local):
+    """Row j + 1 of the orthogonality estimates from rows j (cur) and j - 1 (prev).
+
+    Writes new[0 .. j+1] (new[j] = local, new[j+1] = 1, the rest beyond is
+    zeroed) and returns the largest estimate against columns 0 .. j - 1.
+    """
+    cdef Py_ssize_t k, size = new.shape[0]
+    cdef double t, noise, worst = 0.0, tail
+    with nogil:
+        tail = hypot(alpha[j], beta_j)
+        for k in range(j):
+            t = beta[k] * cur[k + 1] + (alpha[k] - alpha[j]) * cur[k]
+            if k > 0:
+                t = t + beta[k - 1] * cur[k - 1]
+            t = t - beta[j - 1] * prev[k]
+            noise = eps1 * (hypot(alpha[k], beta[k]) + tail)
+            if t >= 0.0:
+                t = t + noise
+            else:
+                t = t - noise
+            t = fabs(t) / beta_j
+            new[k] = t
+            if t > worst:
+                worst = t
+        new[j] = local
+        if j + 1 < size:
+            new[j + 1] = 1.0
+        for k in range(j + 2, size):
+            new[k] = 0.0
+    return worst
 
 
 # ----------------------------------------------------------------------------

@@ -26,7 +26,7 @@ _EPS = np.finfo(np.float64).eps
 #: about 2e-12 ||A||: relative to an eigenvalue much smaller than ||A|| that
 #: reached 1.007e-8 > tol = 1e-8 on the 3-D Laplacian 50^3, lowest 10
 #: (bench/bench_speed.py), so it stays opt-in.
-DEFAULT_REORTHOGONALIZATION = "full"
+DEFAULT_REORTHOGONALIZATION = "partial"
 
 
 # Fewest active Lanczos vectors beside k locked pairs: the verification round

@@ -40,7 +40,7 @@ from __future__ import annotations
 import numpy as np
 from scipy.linalg.blas import daxpy, dgemv, dnrm2
 
-from lanqr.vecops import orthogonalize, recurrence_update
+from lanqr.vecops import omega_advance, orthogonalize, recurrence_update
 
 __all__ = ["reorthogonalize", "subtract_combination", "random_orthogonal_direction",
            "extend_basis", "PartialOrthogonality", "REORTHOGONALIZATION"]
@@ -93,6 +93,7 @@ class PartialOrthogonality:
         self.eps1 = 0.5 * np.sqrt(max(n, 1)) * _EPS
         self.prev = np.zeros(size + 1)
         self.cur = np.zeros(size + 1)
+        self.spare = np.zeros(size + 1)
         self.force = False
         self.reorthogonalizations = 0
         self.steps = 0
@@ -119,25 +120,16 @@ class PartialOrthogonality:
         """Estimate the row ``j + 1`` from step ``j`` (``beta_j`` the new norm).
 
         Returns the largest estimate against columns ``0 .. j - 1``: the new
-        vector is orthogonal to ``q_j`` to rounding by construction.
+        vector is orthogonal to ``q_j`` to rounding by construction.  The
+        recurrence runs compiled (:func:`lanqr.vecops.omega_advance`) into a
+        spare row, so a step allocates nothing.
         """
-        cur, prev = self.cur, self.prev
-        new = np.empty_like(cur)
-        new[j + 2:] = 0.0
-        worst = 0.0
-        if j > 0:
-            k = np.arange(j)
-            t = beta[k] * cur[k + 1] + (alpha[k] - alpha[j]) * cur[k]
-            t[1:] += beta[k[1:] - 1] * cur[k[1:] - 1]
-            t -= beta[j - 1] * prev[k]
-            noise = self.eps1 * (np.hypot(alpha[k], beta[k]) + np.hypot(alpha[j], beta_j))
-            t += np.where(t >= 0, noise, -noise)
-            new[:j] = np.abs(t) / beta_j
-            worst = float(new[:j].max())
+        new = self.spare
         # Local orthogonality after one subtraction of the recurrence.
-        new[j] = max(self.eps1, _EPS * anorm / beta_j)
-        new[j + 1] = 1.0
-        self.prev, self.cur = cur, new
+        local = max(self.eps1, _EPS * anorm / beta_j)
+        worst = omega_advance(new, self.cur, self.prev, alpha, beta, j, beta_j, self.eps1,
+                              local)
+        self.spare, self.prev, self.cur = self.prev, self.cur, new
         return worst
 
     def reset(self, j):
@@ -148,7 +140,7 @@ class PartialOrthogonality:
     def fresh(self, j):
         """After a breakdown: row ``j + 1`` is a fresh direction orthogonalized
         against every column (the recurrence did not run for it)."""
-        self.prev = self.cur.copy()
+        self.prev[:] = self.cur
         self.cur[:] = 0.0
         self.reset(j)
         self.force = False
@@ -253,8 +245,9 @@ def extend_basis(apply, space, Q, offset, first, last, alpha, beta, rng, *,
         ``after_step(steps)`` is called after each step with the active size;
         returning True stops the extension.
     apply_dot : callable or None
-        ``apply_dot(x)`` returns ``(A x, x . A x)`` in one pass (a fresh
-        writable product); used instead of ``apply`` in the Euclidean space.
+        ``apply_dot(x, out=None)`` returns ``(A x, x . A x)`` in one pass,
+        the product written to ``out`` (the next basis column); used instead
+        of ``apply`` in the Euclidean space.
     partial : PartialOrthogonality or None
         None: full reorthogonalization at every step.  Otherwise partial
         reorthogonalization driven by this state (Euclidean space only), which
@@ -277,7 +270,10 @@ def extend_basis(apply, space, Q, offset, first, last, alpha, beta, rng, *,
         c = offset + j
         q = Q[:, c]
         if apply_dot is not None:
-            w, a = apply_dot(q)
+            # The product lands in the next basis column, where the new
+            # vector ends up anyway: no allocation (page faults on a fresh
+            # vector cost ~1 ms per 10^6 entries) and no copy.
+            w, a = apply_dot(q, out=Q[:, c + 1])
         else:
             w = np.require(apply(q), dtype=np.float64, requirements=["C", "W"])
             a = float(q @ w)
@@ -320,7 +316,7 @@ def extend_basis(apply, space, Q, offset, first, last, alpha, beta, rng, *,
                 partial.fresh(j)
         else:
             beta[j] = after
-            np.multiply(w, 1.0 / after, out=Q[:, c + 1])
+            np.multiply(w, 1.0 / after, out=Q[:, c + 1])  # in place when w is that column
         if after_step is not None and after_step(j + 1):
             return j + 1
     return last
@@ -346,7 +342,7 @@ def _extend_generic(apply, space, Q, offset, first, last, alpha, beta, rng,
             Q[:, c + 1] = random_orthogonal_direction(space, Q[:, :c + 1], rng)
         else:
             beta[j] = after
-            np.multiply(w, 1.0 / after, out=Q[:, c + 1])
+            np.multiply(w, 1.0 / after, out=Q[:, c + 1])  # in place when w is that column
         if after_step is not None and after_step(j + 1):
             return j + 1
     return last

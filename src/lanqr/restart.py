@@ -206,7 +206,7 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
         ``apply_block(X)`` applies the operator to the columns of ``X`` (for
         the final Rayleigh-Ritz step); by default ``apply`` column by column.
     apply_dot : callable or None
-        ``apply_dot(x)`` returns ``(A x, x . A x)`` in one pass (see
+        ``apply_dot(x, out=None)`` returns ``(A x, x . A x)`` in one pass (see
         :func:`lanqr.lanczos.extend_basis`).
     reorthogonalization : {"full", "partial"}
         Full reorthogonalization at every step, or Simon's partial
@@ -271,9 +271,9 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
 
     counted_apply_dot = None
     if apply_dot is not None:
-        def counted_apply_dot(x):
+        def counted_apply_dot(x, out=None):
             applied[0] += 1
-            return apply_dot(x)
+            return apply_dot(x, out=out)
 
     state = {"anorm": 0.0, "phase": "main", "round_found": False, "certified": False}
     history = []

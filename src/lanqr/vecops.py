@@ -53,6 +53,8 @@ __all__ = [
     "orthogonalize",
     "orthogonalize_block",
     "rotate_basis",
+    "csr_asymmetry",
+    "omega_advance",
     "SERIAL_BELOW_NNZ",
     "DGKS_ETA",
 ]
@@ -378,6 +380,65 @@ def _column_major(V, name, writable=False):
     if max(n, j) >= 2**31 or (j > 1 and V.strides[1] // V.itemsize >= 2**31):
         raise ValueError(f"{name} is too large for 32-bit BLAS")
     return V
+
+
+def csr_asymmetry(A):
+    """``||A - A^T||_F / max|a_ij|`` of a square CSR matrix, in O(nnz log(row length)).
+
+    Parameters
+    ----------
+    A : scipy.sparse CSR matrix or array, float64, square
+        Duplicates are summed and indices sorted in place if needed (neither
+        changes the matrix it represents).
+
+    Returns
+    -------
+    float
+        The Frobenius norm of ``A - A^T`` divided by the largest absolute
+        stored entry (0 for an empty or all-zero matrix).  Scaling first keeps
+        matrices near the overflow threshold finite.
+
+    Notes
+    -----
+    Each stored off-diagonal entry finds its mirror by binary search in the
+    mirrored row; no transpose is formed (SciPy's ``A - A.T`` builds two
+    matrices of the size of ``A``: 5x slower on a 7e5-row matrix here).
+    """
+    if not sp.issparse(A) or A.format != "csr":
+        raise ValueError("csr_asymmetry needs a scipy.sparse CSR matrix")
+    if A.shape[0] != A.shape[1]:
+        raise ValueError(f"csr_asymmetry needs a square matrix, got shape {A.shape}")
+    if A.dtype != np.float64:
+        raise ValueError(f"csr_asymmetry needs float64 data, got {A.dtype}")
+    A.sum_duplicates()  # also sorts the indices
+    if not A.has_sorted_indices:
+        A.sort_indices()
+    if A.nnz == 0:
+        return 0.0
+    scale = float(np.max(np.abs(A.data)))
+    if scale == 0.0 or not np.isfinite(scale):
+        return 0.0 if scale == 0.0 else float("nan")
+    indices = np.ascontiguousarray(A.indices)
+    indptr = np.ascontiguousarray(A.indptr, dtype=indices.dtype)
+    return float(_vecops.csr_asymmetry(indptr, indices, np.ascontiguousarray(A.data), scale))
+
+
+def omega_advance(new, cur, prev, alpha, beta, j, beta_j, eps1, local):
+    """One step of Simon's recurrence for the orthogonality estimates (compiled).
+
+    Writes row ``j + 1`` into ``new`` from rows ``j`` (``cur``) and ``j - 1``
+    (``prev``) and the tridiagonal coefficients ``alpha[:j + 1]``,
+    ``beta[:j]`` (``beta_j`` is the new coupling); ``eps1`` scales the
+    rounding term, ``local`` is the estimate against ``q_j``.  Returns the
+    largest estimate against columns ``0 .. j - 1``.  Called once per Lanczos
+    step by :class:`lanqr.lanczos.PartialOrthogonality`, so only the lengths
+    are checked: every array is a contiguous float64 vector the caller owns.
+    """
+    if not (0 <= j < alpha.shape[0] and j + 1 < new.shape[0] == cur.shape[0] == prev.shape[0]
+            and beta.shape[0] >= j):
+        raise ValueError(f"omega_advance: inconsistent lengths for step j = {j}")
+    return _vecops.omega_advance(new, cur, prev, alpha, beta, int(j), float(beta_j),
+                                 float(eps1), float(local))
 
 
 def recurrence_update(w, v, v_prev, alpha, beta, *, n_threads=None,
