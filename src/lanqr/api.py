@@ -11,7 +11,9 @@ from lanqr.lanczos import REORTHOGONALIZATION
 from lanqr.operators import as_operator
 from lanqr.options import (NotConvergedWarning, default_basis, resolve_sizes,
                            single_threaded_blas, validate_options)
-from lanqr.restart import FLOOR_FACTOR, thick_restart_lanczos
+from lanqr.polyfilter import ChebyshevFilter, filter_degree, gershgorin_bounds
+from lanqr.restart import (FLOOR_FACTOR, LOCK_FLOOR_SHARE, LOCK_SHARE,
+                           thick_restart_lanczos)
 from lanqr.result import EigenResult
 from lanqr.spectral import generalized_highest, generalized_lowest
 from lanqr.vectorspace import VectorSpace
@@ -21,11 +23,15 @@ __all__ = ["lowest", "highest", "NotConvergedWarning", "default_basis"]
 _EPS = np.finfo(np.float64).eps
 
 #: Reorthogonalization of standard problems when not told otherwise.  Partial
-#: reorthogonalization is faster where Gram-Schmidt dominates (large n, small
-#: products), but the coefficients it drops perturb the residual estimates by
-#: about 2e-12 ||A||: relative to an eigenvalue much smaller than ||A|| that
-#: reached 1.007e-8 > tol = 1e-8 on the 3-D Laplacian 50^3, lowest 10
-#: (bench/bench_speed.py), so it stays opt-in.
+#: reorthogonalization (Simon) skips the Gram-Schmidt pass against the active
+#: basis at most steps (71% on the 2-D Laplacian 150x150, 59% on the Heisenberg
+#: ring of 22 sites).  The coefficients it drops perturb the residual
+#: estimates by about 2e-12 ||A||; before pairs were locked at half of tol
+#: (restart.LOCK_SHARE) that once left an explicit residual at 1.007 tol (3-D
+#: Laplacian 50^3, lowest 10).  With the half-tol locking, the whole test
+#: suite and 260 random problems (grid Laplacians, scaled by up to 1e+-150,
+#: random sparse, spin rings; tol 1e-5..1e-10, k 1..11, lowest and highest)
+#: ended with every explicit residual <= 0.50 tol under the partial strategy.
 DEFAULT_REORTHOGONALIZATION = "partial"
 
 
@@ -37,9 +43,100 @@ _MIN_ACTIVE = 5
 # a dense symmetric solver is faster and exact to rounding.
 _DENSE_MAX_ORDER = 200
 
+#: Polynomial filter settings (see lanqr.polyfilter): "auto" switches to
+#: Lanczos on a Chebyshev filter of A when plain Lanczos has not converged
+#: after FILTER_AFTER_CYCLES times the basis size in products (explicit
+#: matrices only: the filter needs Gershgorin bounds), "on" after the first
+#: cycle, "off" never.
+POLYNOMIAL_FILTER = ("auto", "on", "off")
+# The plain cycles before the switch also place the filter: the cut is the
+# Ritz value just beyond the wanted ones, and later Ritz values lie closer to
+# the eigenvalues.  Measured on the 2-D Laplacian 150x150 / 3-D 30^3 (lowest
+# 10): switching after 2, 4 and 6 cycles took 3370 / 1226, 2702 / 1092 and
+# 2160 / 1065 products (plain Lanczos alone: 2046 / 807, at twice the time).
+# The Heisenberg rings (lowest 2 and 4) converge within 3 cycles and never
+# switch.
+FILTER_AFTER_CYCLES = 6
+
+
+def _filtered_phase(op, space, first, k, selector, tol, basis, max_restarts, rng, callback):
+    """Continue a plain Lanczos run that gave up on its product budget with Lanczos on p(A).
+
+    ``first`` is the hand-over of :func:`lanqr.restart.thick_restart_lanczos`:
+    locked pairs and the best active Ritz vectors of ``A`` in wanted order.
+    """
+    n = op.n
+    spectrum = gershgorin_bounds(op.matrix)
+    X, x_vals = first["locked_vectors"], first["locked_values"]
+    Y, y_vals = first["active_vectors"], first["active_values"]
+    need = k - X.shape[1]
+    # The cut: the Ritz value just beyond the wanted ones.  A Ritz value bounds
+    # the eigenvalue of its rank from the unwanted side, so every wanted
+    # eigenvalue lies on the amplified side.  A cut further out amplifies the
+    # wanted ones less against their neighbours: the 10th, 15th and 20th
+    # Ritz values took 2702, 3054 and 3454 products on the 2-D Laplacian
+    # 150x150 (lowest 10, after 4 cycles).
+    cut = float(y_vals[min(need + 1, len(y_vals)) - 1])
+    lower, upper = (cut, spectrum[1]) if selector == "lowest" else (spectrum[0], cut)
+    if not lower < upper:
+        return None
+    nnz_per_row = op.matrix.nnz / n if hasattr(op.matrix, "nnz") else n
+    degree = filter_degree(basis, nnz_per_row)
+    degree = min(degree, ChebyshevFilter.max_degree(lower, upper, selector, spectrum))
+    if degree < 2:
+        return None
+    filt = ChebyshevFilter(op.apply, lower, upper, degree, selector, spectrum,
+                           chebyshev_step=op.fused_chebyshev_step())
+    anorm = max(abs(spectrum[0]), abs(spectrum[1]))
+
+    def pair_threshold(mu, anorm_filtered):
+        # The threshold in A (as in the plain run) divided by the residual
+        # factor kappa(mu); pairs the filter does not amplify never lock.
+        lam = filt.eigenvalue(mu)
+        with np.errstate(invalid="ignore"):
+            in_a = LOCK_SHARE * np.maximum(tol * np.abs(lam), FLOOR_FACTOR * _EPS * anorm)
+            thr = in_a / filt.residual_factor(mu)
+        floor = LOCK_FLOOR_SHARE * FLOOR_FACTOR * _EPS * anorm_filtered
+        return np.where(np.isfinite(thr), np.maximum(thr, floor), 0.0)
+
+    def report(mu, est):
+        return filt.eigenvalue(mu), est * filt.residual_factor(mu)
+
+    # Products so far, and each application of the filter counts ``degree``.
+    switched = first["history"][-1]["matvecs"] if first["history"] else 0
+
+    def in_products(count):
+        return switched + degree * count
+
+    wrapped = None
+    if callback is not None:
+        def wrapped(state):
+            callback(dict(state, matvecs=in_products(state["matvecs"])))
+
+    # Start from the wanted Ritz vectors the plain run was converging: the
+    # filter amplifies exactly their directions.
+    start = Y[:, :max(need, 1)].sum(axis=1)
+    out = thick_restart_lanczos(filt.apply, space, n, k, "highest", tol=tol, basis=basis,
+                                max_restarts=max(max_restarts - first["restarts"], 0), rng=rng,
+                                start=start, callback=wrapped, reorthogonalization="full",
+                                initial_locked=(X, filt.value(x_vals)),
+                                pair_threshold=pair_threshold,
+                                final_apply_block=op.apply_block, final_selector=selector,
+                                report=report)
+    for entry in out["history"]:
+        entry["matvecs"] = in_products(entry["matvecs"])
+        entry["filtered"] = True
+    out["restarts"] += first["restarts"]
+    out["history"] = first["history"] + out["history"]
+    out["norm_estimate"] = max(first["norm_estimate"], float(np.max(np.abs(out["values"]))))
+    out["polynomial_filter"] = {"degree": degree, "damped": (lower, upper),
+                                "spectrum_bounds": spectrum,
+                                "switched_after": switched}
+    return out
+
 
 def _solve(A, k, selector, tol, basis, max_restarts, seed, start, callback,
-           reorthogonalization=None):
+           reorthogonalization=None, polynomial_filter="auto"):
     t0 = time.perf_counter()
     start = validate_options(k, tol, basis, max_restarts, start)
     if reorthogonalization is None:
@@ -53,6 +150,12 @@ def _solve(A, k, selector, tol, basis, max_restarts, seed, start, callback,
     basis, max_restarts = resolve_sizes(k, n, basis, max_restarts, min_active=_MIN_ACTIVE)
     if start is not None and start.size != n:
         raise ValueError(f"start has length {start.size}, expected n = {n}")
+    if polynomial_filter not in POLYNOMIAL_FILTER:
+        raise ValueError(f"polynomial_filter must be one of {POLYNOMIAL_FILTER}, "
+                         f"got {polynomial_filter!r}")
+    if polynomial_filter == "on" and op.matrix is None:
+        raise ValueError("polynomial_filter='on' needs an explicit matrix (dense or sparse): "
+                         "its Gershgorin bounds place the filter")
     space = VectorSpace(n)
     info = {}
 
@@ -69,15 +172,37 @@ def _solve(A, k, selector, tol, basis, max_restarts, seed, start, callback,
         products = op.apply_block(vecs)
     else:
         basis = min(basis, n - 1)
+        budget = None
+        if op.matrix is not None and polynomial_filter != "off":
+            budget = basis if polynomial_filter == "on" else FILTER_AFTER_CYCLES * basis
+        method = f"thick-restart Lanczos (basis {basis})"
         with single_threaded_blas():
             out = thick_restart_lanczos(op.apply, space, n, k, selector, tol=tol, basis=basis,
                                         max_restarts=max_restarts, rng=rng, start=start,
                                         callback=callback, apply_block=op.apply_block,
                                         apply_dot=op.apply_dot, n_threads=op.n_threads,
-                                        reorthogonalization=reorthogonalization)
+                                        reorthogonalization=reorthogonalization,
+                                        product_budget=budget)
+            if out["budget_exhausted"]:
+                first = out
+                out = _filtered_phase(op, space, first, k, selector, tol, basis, max_restarts,
+                                      rng, callback)
+                if out is None:
+                    # No usable filter (the cut reached the spectrum bound):
+                    # go on without one, from the best Ritz vector.
+                    out = thick_restart_lanczos(
+                        op.apply, space, n, k, selector, tol=tol, basis=basis,
+                        max_restarts=max_restarts, rng=rng,
+                        start=first["active_vectors"][:, 0], callback=callback,
+                        apply_block=op.apply_block, apply_dot=op.apply_dot,
+                        n_threads=op.n_threads, reorthogonalization=reorthogonalization)
+                else:
+                    pf = out["polynomial_filter"]
+                    method += (f", then Lanczos on a degree-{pf['degree']} Chebyshev filter "
+                               f"after {pf['switched_after']} products")
+                    info["polynomial_filter"] = pf
         vals, vecs, products = out["values"], out["vectors"], out["products"]
         anorm = out["norm_estimate"]
-        method = f"thick-restart Lanczos (basis {basis})"
         restarts, history = out["restarts"], out["history"]
         info.update(verification=out["verification"], verified=out["verified"],
                     exhausted=out["exhausted"], estimates=out["estimates"],
@@ -157,8 +282,9 @@ _DOC_COMMON = """
     reorthogonalization : {"full", "partial"}, optional
         ``"full"``: every new Lanczos vector is orthogonalized against the
         whole basis.  ``"partial"``: against the active basis only when
-        Simon's estimate of the loss of orthogonality exceeds sqrt(eps)
-        (standard problems only, see Notes).  Default ``"full"``.
+        Simon's estimate of the loss of orthogonality exceeds eps^(3/4)
+        (standard problems only, see Notes).  Default ``"partial"`` for
+        standard problems, ``"full"`` with ``M`` or ``shift``.
 
     Returns
     -------
@@ -198,17 +324,21 @@ _DOC_COMMON = """
     1e150 gives the same relative results.  ``residuals`` holds
     ``||A x - t x|| / max(|t|, floor)`` computed explicitly at the end.
 
-    The method is Lanczos with full reorthogonalization (classical
-    Gram-Schmidt, DGKS second pass) and thick restart with locking; after the
+    The method is Lanczos with partial reorthogonalization (classical
+    Gram-Schmidt with a DGKS second pass whenever Simon's estimate of the
+    loss of orthogonality exceeds eps^(3/4); locked vectors are projected out
+    at every step) and thick restart with locking; after the
     wanted pairs converge, a verification round from a fresh random vector
     looks for copies of repeated eigenvalues (``result.info["verification"]``:
     rounds, copies found, steps; ``result.info["verified"]``: whether the
-    round certified the set).  With ``reorthogonalization="partial"`` the
-    basis is kept semi-orthogonal (``|q_i . q_j|`` below sqrt(eps)), which
-    keeps the Ritz values accurate to working precision (Simon 1984) at a
-    fraction of the Gram-Schmidt cost; the residuals are still computed
-    explicitly at the end, and an eigenvalue much smaller than ``||A||`` can
-    end slightly above ``tol`` (flagged in ``converged``).  Sparse input is applied by lanqr's compiled CSR
+    round certified the set).  The partial strategy keeps the basis
+    semi-orthogonal (``|q_i . q_j|`` below sqrt(eps)), which keeps the Ritz
+    values accurate to working precision (Simon 1984) at a fraction of the
+    Gram-Schmidt cost; ``reorthogonalization="full"`` orthogonalizes every
+    new vector against the whole basis (the safe choice when in doubt, and
+    the only one for ``M`` or ``shift``).  Either way the residuals are
+    computed explicitly at the end, and a pair above ``tol`` is flagged in
+    ``converged``.  Sparse input is applied by lanqr's compiled CSR
     product (threads from ``OMP_NUM_THREADS``), and BLAS is limited to one
     thread during the iteration when threadpoolctl is installed.  Problems of order at most
     ``max(200, 2 basis)`` are solved densely with ``scipy.linalg.eigh``.
@@ -221,6 +351,13 @@ _DOC_COMMON = """
 """
 
 
+def _no_filter(polynomial_filter):
+    if polynomial_filter not in ("auto", "off"):
+        raise ValueError(f"polynomial_filter={polynomial_filter!r} is available for standard "
+                         "problems only (no M, no shift: shift-invert already separates the "
+                         "wanted eigenvalues)")
+
+
 def _standard_only(reorthogonalization):
     if reorthogonalization not in (None, "full"):
         raise ValueError(f"reorthogonalization={reorthogonalization!r} is available for "
@@ -228,24 +365,26 @@ def _standard_only(reorthogonalization):
 
 
 def lowest(A, k=6, *, M=None, shift=None, tol=1e-8, basis=None, max_restarts=None, seed=None,
-           start=None, callback=None, reorthogonalization=None):
+           start=None, callback=None, reorthogonalization=None, polynomial_filter="auto"):
     if M is not None or shift is not None:
         _standard_only(reorthogonalization)
+        _no_filter(polynomial_filter)
         return generalized_lowest(A, k, M=M, shift=shift, tol=tol, basis=basis,
                                   max_restarts=max_restarts, seed=seed, start=start,
                                   callback=callback)
     return _solve(A, k, "lowest", tol, basis, max_restarts, seed, start, callback,
-                  reorthogonalization)
+                  reorthogonalization, polynomial_filter)
 
 
 def highest(A, k=6, *, M=None, tol=1e-8, basis=None, max_restarts=None, seed=None, start=None,
-            callback=None, reorthogonalization=None):
+            callback=None, reorthogonalization=None, polynomial_filter="auto"):
     if M is not None:
         _standard_only(reorthogonalization)
+        _no_filter(polynomial_filter)
         return generalized_highest(A, k, M=M, tol=tol, basis=basis, max_restarts=max_restarts,
                                    seed=seed, start=start, callback=callback)
     return _solve(A, k, "highest", tol, basis, max_restarts, seed, start, callback,
-                  reorthogonalization)
+                  reorthogonalization, polynomial_filter)
 
 
 lowest.__doc__ = """The ``k`` lowest (algebraically smallest) eigenpairs of a symmetric operator.

@@ -15,8 +15,9 @@ in one pass, and Gram-Schmidt with DGKS as two BLAS dgemv calls per pass.  The
 arithmetic is the same as the generic path's (the generic path, for M-inner
 products, is kept).
 
-Partial reorthogonalization (Simon) is an optional speed mode (off by default,
-see :data:`lanqr.api.DEFAULT_REORTHOGONALIZATION`): the loss of
+Partial reorthogonalization (Simon) is the default for standard problems
+(see :data:`lanqr.api.DEFAULT_REORTHOGONALIZATION`; full reorthogonalization
+at every step stays available and serves M-inner products): the loss of
 orthogonality of the new vector against the active basis is estimated by
 Simon's omega recurrence from the tridiagonal coefficients, and the vector is
 reorthogonalized against the active basis only when the estimate exceeds

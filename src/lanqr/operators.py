@@ -59,10 +59,12 @@ class SymmetricOperator:
         Number of vectors the operator has been applied to so far.
     """
 
-    def __init__(self, n, apply_block, kind, matrix=None, *, apply_dot=None, n_threads=1):
+    def __init__(self, n, apply_block, kind, matrix=None, *, apply_dot=None, n_threads=1,
+                 chebyshev_step=None):
         self.n = int(n)
         self._apply_block = apply_block
         self._apply_dot = apply_dot
+        self._chebyshev_step = chebyshev_step
         self.kind = kind
         self.matrix = matrix
         self.n_threads = int(n_threads)
@@ -89,6 +91,18 @@ class SymmetricOperator:
             return y, float(x @ y)
         self.applications += 1
         return self._apply_dot(x, out=out)
+
+    def fused_chebyshev_step(self):
+        """A counted ``step(x, y, sigma, shift, tau)``: ``y <- sigma (A x - shift x) - tau y``
+        in one pass (compiled CSR products only), else None."""
+        if self._chebyshev_step is None:
+            return None
+        fused = self._chebyshev_step
+
+        def step(x, y, sigma, shift, tau):
+            self.applications += 1
+            return fused(x, y, sigma, shift, tau)
+        return step
 
     def apply_block(self, X):
         """Return ``A @ X`` for a block ``X`` of shape ``(n, b)`` (counted as ``b``)."""
@@ -167,7 +181,8 @@ def _sparse_operator(A, n_threads=None):
 
     return SymmetricOperator(A.shape[0], apply_block, "sparse CSR (compiled product)",
                              matrix=A, apply_dot=product.matvec_dot,
-                             n_threads=product.n_threads)
+                             n_threads=product.n_threads,
+                             chebyshev_step=product.chebyshev_step)
 
 
 def _probe_symmetry(op, rng):

@@ -41,6 +41,7 @@ import numpy as np
 import scipy.linalg
 
 from lanqr.lanczos import (REORTHOGONALIZATION, PartialOrthogonality, extend_basis,
+                           reorthogonalize,
                            random_orthogonal_direction)
 from lanqr.tridiagonal import tridiag_eigen
 from lanqr.vecops import rotate_basis
@@ -173,7 +174,9 @@ def _arrow_to_tridiagonal(theta, s):
 def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_restarts, rng,
                           start=None, callback=None, keep_extra=None, verify=True,
                           apply_block=None, apply_dot=None, reorthogonalization="full",
-                          n_threads=1, measure_orthogonality=False):
+                          n_threads=1, measure_orthogonality=False, product_budget=None,
+                          initial_locked=None, pair_threshold=None, final_apply_block=None,
+                          final_selector=None, report=None):
     """Thick-restart Lanczos for the ``k`` wanted eigenpairs of a symmetric operator.
 
     Parameters
@@ -216,6 +219,26 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
     measure_orthogonality : bool
         Record ``max |Q^T Q - I|`` of the whole basis before every restart and
         at the end (one Gram matrix each time: for tests and diagnostics).
+    product_budget : int or None
+        Give up the main phase at the first restart after this many operator
+        applications: the result then has ``budget_exhausted`` True and, in
+        ``active``, the best unconverged Ritz vectors (a caller switching to
+        another operator continues from them).
+    initial_locked : tuple (X, values) or None
+        Converged eigenvectors (orthonormal columns) and their eigenvalues of
+        this operator, locked from the start.
+    pair_threshold : callable or None
+        ``pair_threshold(theta, norm_estimate)`` returns the residual estimate
+        below which each Ritz pair counts as converged (locked); by default
+        ``max(LOCK_SHARE tol |theta|, LOCK_FLOOR_SHARE FLOOR_FACTOR eps
+        ||A||)``.  A filtered operator translates its residuals this way.
+    final_apply_block, final_selector : callable, str or None
+        Operator and selector for the final Rayleigh-Ritz step (default: the
+        iteration's own); with a polynomial filter the final step uses ``A``.
+    report : callable or None
+        ``report(theta, estimates)`` returns the Ritz values and residual
+        estimates recorded in ``history`` and passed to ``callback`` (a
+        filtered operator reports them in terms of ``A``).
 
     Returns
     -------
@@ -252,16 +275,32 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
     beta = np.zeros(m)
     locked_vals = np.zeros(0)
     L = 0  # locked columns at the front of Q
+    if initial_locked is not None:
+        X0, values0 = initial_locked
+        L = X0.shape[1]
+        if L >= m - 1:
+            raise ValueError(f"{L} initially locked vectors leave no room in a basis of {m}")
+        Q[:, :L] = X0
+        locked_vals = np.array(values0, dtype=np.float64).reshape(L)
 
     if start is None:
         v = rng.standard_normal(n)
     else:
         v = np.array(start, dtype=np.float64).reshape(n)
+    if L:
+        _, before, after = reorthogonalize(space, Q[:, :L], v)
+        if not (after > 1e-3 * before):
+            v = random_orthogonal_direction(space, Q[:, :L], rng)
     nv = space.norm(v)
     if not np.isfinite(nv) or nv == 0.0:
         v = rng.standard_normal(n)
+        if L:
+            v = random_orthogonal_direction(space, Q[:, :L], rng)
         nv = space.norm(v)
-    Q[:, 0] = v / nv
+    Q[:, L] = v / nv
+    if report is None:
+        def report(theta, est):
+            return theta, est
 
     applied = [0]  # operator applications by this solve (history, callback)
 
@@ -285,6 +324,8 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
     exhausted = False
 
     def threshold(theta):
+        if pair_threshold is not None:
+            return pair_threshold(theta, state["anorm"])
         floor = LOCK_FLOOR_SHARE * FLOOR_FACTOR * _EPS * state["anorm"]
         return np.maximum(LOCK_SHARE * tol * np.abs(theta), floor)
 
@@ -333,10 +374,10 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
         est = np.abs(beta[j - 1] * S[-1, :])
         order = np.argsort(wanted_key(theta, selector), kind="stable")
         thr = threshold(theta)
-        history.append({"ritz": theta[order].copy(), "estimates": est[order].copy(),
+        last_theta, last_est = report(theta[order], est[order])
+        history.append({"ritz": np.array(last_theta), "estimates": np.array(last_est),
                         "matvecs": applied[0],
                         "locked": L, "phase": state["phase"]})
-        last_theta, last_est = theta[order], est[order]
 
         # Decide which active pairs to lock and which to keep.
         if state["phase"] == "main":
@@ -379,6 +420,30 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
             # No room left for an active basis: stop with what is locked.
             exhausted = True
             finished = True
+
+        if (product_budget is not None and applied[0] >= product_budget
+                and state["phase"] == "main" and not done_main and not finished
+                and restarts < max_restarts):
+            # Hand over: the locked pairs (with the newly converged ones) and
+            # the best unconverged Ritz vectors, in wanted order.
+            keep = rest[:min(len(rest), j)]
+            return {
+                "budget_exhausted": True,
+                "locked_vectors": np.hstack([Q[:, :L], Q[:, L:L + j] @ S[:, lock]]),
+                "locked_values": np.concatenate([locked_vals, theta[lock]]),
+                "active_vectors": Q[:, L:L + j] @ S[:, keep],
+                "active_values": theta[keep],
+                "active_estimates": est[keep],
+                "restarts": restarts,
+                "history": history,
+                "norm_estimate": state["anorm"],
+                "verification": verification,
+                "reorthogonalization": {
+                    "strategy": reorthogonalization,
+                    "steps": partial.steps if partial is not None else None,
+                    "reorthogonalizations":
+                        partial.reorthogonalizations if partial is not None else None},
+            }
 
         if finished or restarts >= max_restarts:
             # Lock the converged ones; if fewer than k are locked, add the
@@ -439,6 +504,11 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
     # active basis; pairs of a cluster locked at different restarts therefore
     # carry small components of each other.  One projection onto their span
     # removes them, so each residual is the part orthogonal to all of them.
+    if final_apply_block is not None:
+        apply_block = final_apply_block
+        apply = lambda x: final_apply_block(x[:, None])[:, 0]  # noqa: E731
+    if final_selector is not None:
+        selector = final_selector
     K = final_vecs.shape[1]
     if apply_block is None:
         AX = np.empty_like(final_vecs)
@@ -458,6 +528,7 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
     AX = AX @ U
     pick = np.argsort(wanted_key(final_vals, selector), kind="stable")[:k]
     return {
+        "budget_exhausted": False,
         "values": final_vals[pick],
         "vectors": np.asfortranarray(final_vecs[:, pick]),
         "products": np.asfortranarray(AX[:, pick]),

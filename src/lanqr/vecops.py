@@ -311,6 +311,39 @@ class CsrProduct:
                                        self.n_threads)
         return y, float(alpha)
 
+    def chebyshev_step(self, x, y, sigma, shift, tau):
+        """In place: ``y <- sigma (A x - shift x) - tau y`` in one pass over memory.
+
+        The three-term recurrence of a Chebyshev polynomial in ``A`` (see
+        :mod:`lanqr.polyfilter`) costs one product this way: the old ``y`` is
+        read and overwritten row by row (not read at all when ``tau == 0``).
+
+        Parameters
+        ----------
+        x : ndarray, shape (n,)
+            Float64, contiguous, not overlapping ``y``.
+        y : ndarray, shape (n,)
+            Float64, contiguous, writable; overwritten.
+        sigma, shift, tau : float
+
+        Raises
+        ------
+        ValueError
+            Non-square matrix, wrong shapes or layouts, overlapping vectors.
+        """
+        if self.shape[0] != self.shape[1]:
+            raise ValueError(f"chebyshev_step needs a square matrix, got shape {self.shape}")
+        n = self.shape[0]
+        x = _float_vector(x, n, "x")
+        y = _writable_vector(y, "y")
+        if y.shape[0] != n:
+            raise ValueError(f"y must have length {n}, got {y.shape[0]}")
+        if np.may_share_memory(x, y):
+            raise ValueError("y must not overlap x")
+        _vecops.csr_chebyshev_step(self._indptr, self._indices, self._data, x, y,
+                                   float(sigma), float(shift), float(tau), self.n_threads)
+        return y
+
     def matmat(self, X, out=None):
         """Return ``Y = A X`` for a block of vectors.
 
