@@ -296,12 +296,16 @@ def main(argv=None):
     ap.add_argument("--sides", default="lanqr,eigsh,eigsh-ncv")
     ap.add_argument("--reorthogonalization", choices=("full", "partial"), default=None,
                     help="lanqr's reorthogonalization (default: lanqr's default)")
+    ap.add_argument("--polynomial-filter", choices=("auto", "on", "off"), default=None,
+                    help="lanqr's polynomial_filter (default: lanqr's default, auto)")
     ap.add_argument("--blas-threads", type=int, default=None,
                     help="limit BLAS threads for every side (threadpoolctl); default: as found")
     args = ap.parse_args(argv)
     sides = args.sides.split(",")
     if args.reorthogonalization:
         LANQR_OPTIONS["reorthogonalization"] = args.reorthogonalization
+    if args.polynomial_filter:
+        LANQR_OPTIONS["polynomial_filter"] = args.polynomial_filter
     limiter = None
     if args.blas_threads is not None:
         from threadpoolctl import threadpool_limits

@@ -426,12 +426,14 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
                 and restarts < max_restarts):
             # Hand over: the locked pairs (with the newly converged ones) and
             # the best unconverged Ritz vectors, in wanted order.
+            # Vectors only for the wanted ones (no second basis-sized array
+            # while the caller goes on); values for every Ritz pair.
             keep = rest[:min(len(rest), j)]
             return {
                 "budget_exhausted": True,
                 "locked_vectors": np.hstack([Q[:, :L], Q[:, L:L + j] @ S[:, lock]]),
                 "locked_values": np.concatenate([locked_vals, theta[lock]]),
-                "active_vectors": Q[:, L:L + j] @ S[:, keep],
+                "active_vectors": Q[:, L:L + j] @ S[:, keep[:max(k - L - nl, 1)]],
                 "active_values": theta[keep],
                 "active_estimates": est[keep],
                 "restarts": restarts,
