@@ -57,6 +57,9 @@ POLYNOMIAL_FILTER = ("auto", "on", "off")
 # The Heisenberg rings (lowest 2 and 4) converge within 3 cycles and never
 # switch.
 FILTER_AFTER_CYCLES = 6
+# The filter's value at the last wanted Ritz value is kept at least this
+# (cut placement in _filtered_phase).
+MIN_AMPLIFICATION = 2.0
 
 
 def _filtered_phase(op, space, first, k, selector, tol, basis, max_restarts, rng, callback):
@@ -68,20 +71,32 @@ def _filtered_phase(op, space, first, k, selector, tol, basis, max_restarts, rng
     n = op.n
     spectrum = gershgorin_bounds(op.matrix)
     X, x_vals = first["locked_vectors"], first["locked_values"]
-    Y, y_vals = first["active_vectors"], first["active_values"]
+    y_vals = first["active_values"]
     need = k - X.shape[1]
+    nnz_per_row = op.matrix.nnz / n if hasattr(op.matrix, "nnz") else n
+    degree = filter_degree(basis, nnz_per_row)
     # The cut: the Ritz value just beyond the wanted ones.  A Ritz value bounds
     # the eigenvalue of its rank from the unwanted side, so every wanted
     # eigenvalue lies on the amplified side.  A cut further out amplifies the
     # wanted ones less against their neighbours: the 10th, 15th and 20th
     # Ritz values took 2702, 3054 and 3454 products on the 2-D Laplacian
-    # 150x150 (lowest 10, after 4 cycles).
+    # 150x150 (lowest 10, after 4 cycles).  But when the next eigenvalue
+    # equals the last wanted one (a repeated eigenvalue at the cut, the
+    # zero of a graph with many components) that Ritz value is no cut at
+    # all, so the cut is moved out until the filter lifts the last wanted
+    # Ritz value to at least MIN_AMPLIFICATION (any point beyond an upper
+    # bound of the wanted eigenvalues is a valid cut).
+    last = float(y_vals[max(need, 1) - 1])
     cut = float(y_vals[min(need + 1, len(y_vals)) - 1])
-    lower, upper = (cut, spectrum[1]) if selector == "lowest" else (spectrum[0], cut)
+    u = np.cosh(np.arccosh(MIN_AMPLIFICATION) / degree) - 1.0
+    if selector == "lowest":
+        cut = max(cut, (last + 0.5 * u * spectrum[1]) / (1.0 + 0.5 * u))
+        lower, upper = cut, spectrum[1]
+    else:
+        cut = min(cut, (last + 0.5 * u * spectrum[0]) / (1.0 + 0.5 * u))
+        lower, upper = spectrum[0], cut
     if not lower < upper:
         return None
-    nnz_per_row = op.matrix.nnz / n if hasattr(op.matrix, "nnz") else n
-    degree = filter_degree(basis, nnz_per_row)
     degree = min(degree, ChebyshevFilter.max_degree(lower, upper, selector, spectrum))
     if degree < 2:
         return None
@@ -115,7 +130,7 @@ def _filtered_phase(op, space, first, k, selector, tol, basis, max_restarts, rng
 
     # Start from the wanted Ritz vectors the plain run was converging: the
     # filter amplifies exactly their directions.
-    start = Y[:, :max(need, 1)].sum(axis=1)
+    start = first["active_start"]
     out = thick_restart_lanczos(filt.apply, space, n, k, "highest", tol=tol, basis=basis,
                                 max_restarts=max(max_restarts - first["restarts"], 0), rng=rng,
                                 start=start, callback=wrapped, reorthogonalization="full",
@@ -193,7 +208,7 @@ def _solve(A, k, selector, tol, basis, max_restarts, seed, start, callback,
                     out = thick_restart_lanczos(
                         op.apply, space, n, k, selector, tol=tol, basis=basis,
                         max_restarts=max_restarts, rng=rng,
-                        start=first["active_vectors"][:, 0], callback=callback,
+                        start=first["active_start"], callback=callback,
                         apply_block=op.apply_block, apply_dot=op.apply_dot,
                         n_threads=op.n_threads, reorthogonalization=reorthogonalization)
                 else:
@@ -285,6 +300,12 @@ _DOC_COMMON = """
         Simon's estimate of the loss of orthogonality exceeds eps^(3/4)
         (standard problems only, see Notes).  Default ``"partial"`` for
         standard problems, ``"full"`` with ``M`` or ``shift``.
+    polynomial_filter : {"auto", "on", "off"}, optional
+        Standard problems with an explicit matrix only.  ``"auto"`` (default):
+        when plain Lanczos has not converged after six basis-sized cycles (a
+        cluster of wanted eigenvalues, tiny next to the spectrum's width),
+        go on with Lanczos on a Chebyshev polynomial of ``A`` (see Notes);
+        ``"on"``: switch after the first cycle; ``"off"``: never.
 
     Returns
     -------
@@ -298,8 +319,9 @@ _DOC_COMMON = """
     ------
     ValueError
         Non-square, complex, non-symmetric, NaN/Inf input; ``k`` out of range;
-        bad ``tol``, ``basis``, ``max_restarts``, ``start`` or
-        ``reorthogonalization`` (``"partial"`` with ``M`` or ``shift``).
+        bad ``tol``, ``basis``, ``max_restarts``, ``start``,
+        ``reorthogonalization`` (``"partial"`` with ``M`` or ``shift``) or
+        ``polynomial_filter`` (``"on"`` with an operator, ``M`` or ``shift``).
 
     Warns
     -----
@@ -338,7 +360,18 @@ _DOC_COMMON = """
     new vector against the whole basis (the safe choice when in doubt, and
     the only one for ``M`` or ``shift``).  Either way the residuals are
     computed explicitly at the end, and a pair above ``tol`` is flagged in
-    ``converged``.  Sparse input is applied by lanqr's compiled CSR
+    ``converged``.
+
+    The polynomial filter ``p`` (degree ``d``, see :mod:`lanqr.polyfilter`)
+    lies in ``[-1, 1]`` between a Ritz value just beyond the wanted ones and
+    the Gershgorin bound of the spectrum, and grows fast beyond the cut, so
+    the wanted eigenvalues become the well separated largest ones of
+    ``p(A)``; each outer step costs ``d`` products (one fused pass each for
+    sparse input) and the basis work is spread over them.  Pairs are locked
+    on ``p(A)`` at a threshold translated from the one in ``A``, and the final
+    Rayleigh-Ritz step and the explicit residuals use ``A`` itself
+    (``result.info["polynomial_filter"]``: degree, damped interval, products
+    before the switch).  Sparse input is applied by lanqr's compiled CSR
     product (threads from ``OMP_NUM_THREADS``), and BLAS is limited to one
     thread during the iteration when threadpoolctl is installed.  Problems of order at most
     ``max(200, 2 basis)`` are solved densely with ``scipy.linalg.eigh``.

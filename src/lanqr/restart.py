@@ -221,9 +221,10 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
         at the end (one Gram matrix each time: for tests and diagnostics).
     product_budget : int or None
         Give up the main phase at the first restart after this many operator
-        applications: the result then has ``budget_exhausted`` True and, in
-        ``active``, the best unconverged Ritz vectors (a caller switching to
-        another operator continues from them).
+        applications: the result then has ``budget_exhausted`` True, the
+        locked pairs, the active Ritz values in wanted order and, in
+        ``active_start``, the sum of the unconverged wanted Ritz vectors (a
+        caller switching to another operator continues from it).
     initial_locked : tuple (X, values) or None
         Converged eigenvectors (orthonormal columns) and their eigenvalues of
         this operator, locked from the start.
@@ -426,14 +427,16 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
                 and restarts < max_restarts):
             # Hand over: the locked pairs (with the newly converged ones) and
             # the best unconverged Ritz vectors, in wanted order.
-            # Vectors only for the wanted ones (no second basis-sized array
-            # while the caller goes on); values for every Ritz pair.
+            # One vector, the sum of the unconverged wanted Ritz vectors (no
+            # second basis-sized array while the caller goes on); values for
+            # every Ritz pair.
             keep = rest[:min(len(rest), j)]
+            wanted_left = keep[:max(k - L - nl, 1)]
             return {
                 "budget_exhausted": True,
                 "locked_vectors": np.hstack([Q[:, :L], Q[:, L:L + j] @ S[:, lock]]),
                 "locked_values": np.concatenate([locked_vals, theta[lock]]),
-                "active_vectors": Q[:, L:L + j] @ S[:, keep[:max(k - L - nl, 1)]],
+                "active_start": Q[:, L:L + j] @ S[:, wanted_left].sum(axis=1),
                 "active_values": theta[keep],
                 "active_estimates": est[keep],
                 "restarts": restarts,
@@ -453,9 +456,11 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
             need = max(k - L - nl, 0)
             act = rest[:need]
             cols = list(lock) + list(act)
-            X = Q[:, L:L + j] @ S[:, cols] if cols else np.zeros((n, 0))
             final_vals = np.concatenate([locked_vals, theta[cols]])
-            final_vecs = np.hstack([Q[:, :L], X])
+            final_vecs = np.empty((n, L + len(cols)), order="F")
+            final_vecs[:, :L] = Q[:, :L]
+            if cols:
+                np.matmul(Q[:, L:L + j], S[:, cols], out=final_vecs[:, L:])
             final_est = np.concatenate([np.zeros(L), est[cols]])
             final_conv = np.concatenate([np.ones(L + nl, dtype=bool), est[act] <= thr[act]])
             break
@@ -506,6 +511,9 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
     # active basis; pairs of a cluster locked at different restarts therefore
     # carry small components of each other.  One projection onto their span
     # removes them, so each residual is the part orthogonal to all of them.
+    # The basis is no longer needed: release it before the products below
+    # (the peak memory is the basis or the final block, not both).
+    Q = None
     if final_apply_block is not None:
         apply_block = final_apply_block
         apply = lambda x: final_apply_block(x[:, None])[:, 0]  # noqa: E731
@@ -526,8 +534,10 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
     final_conv = final_conv[owner]
     final_est = final_est[owner]
     final_vals = vals_rr
-    final_vecs = final_vecs @ U
-    AX = AX @ U
+    # In place (row chunks): no second copy of either block.
+    rotate_basis(final_vecs, U)
+    AX = np.asfortranarray(AX)
+    rotate_basis(AX, U)
     pick = np.argsort(wanted_key(final_vals, selector), kind="stable")[:k]
     return {
         "budget_exhausted": False,
