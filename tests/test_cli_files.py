@@ -239,6 +239,23 @@ def test_convergence_plot_follows_each_copy_of_a_double_eigenvalue():
     assert traces[2][1][-1] == pytest.approx(1e-9 / 2.0)
 
 
+def test_convergence_plot_skips_pairs_a_polynomial_filter_left_unamplified():
+    # A filtered run records NaN (no value in A) and an infinite estimate for
+    # Ritz pairs outside the amplified range; the matching must skip them.
+    from types import SimpleNamespace
+
+    from lanqr.cli import _follow_pairs
+
+    result = SimpleNamespace(values=np.array([1.0, 2.0]), tol=1e-8)
+    history = [
+        {"ritz": np.array([1.0 + 1e-3, np.nan, 2.0 + 1e-3]),
+         "estimates": np.array([1e-2, np.inf, 1e-2])},
+        {"ritz": np.array([1.0, 2.0, np.nan]), "estimates": np.array([1e-9, 1e-9, np.inf])},
+    ]
+    traces = _follow_pairs(result, history)
+    assert traces[0][0] == [0, 1] and traces[1][0] == [0, 1]
+
+
 def test_bench_backward_error_on_closed_form_pairs():
     # reference-values.md §4: sin(i j pi/(n+1)) are exact eigenvectors of tridiag(-1, 2, -1)
     # with eigenvalues 4 sin^2(j pi/(2(n+1))); their backward error is at rounding level,

@@ -207,3 +207,18 @@ def test_filter_option_errors():
         warnings.simplefilter("error")
         res = lanqr.lowest(op, 3, seed=0)
     assert "polynomial_filter" not in res.info
+
+
+def test_cut_lies_beyond_locked_values_when_copies_were_missed():
+    # Regression: the plain phase of the 2-D Laplacian 43x43 (lowest 11,
+    # tol 1e-9) locks values up to 0.127 before it has seen the second
+    # copies at 0.051 and 0.066; a cut placed from the active Ritz values
+    # alone (0.066) left locked pairs unamplified and the run never
+    # certified.  reference-values.md §4: closed form with multiplicities.
+    A = laplacian_grid((43, 43))
+    with warnings.catch_warnings():
+        warnings.simplefilter("error")
+        res = lanqr.lowest(A, 11, tol=1e-9, seed=0)
+    assert "polynomial_filter" in res.info
+    np.testing.assert_allclose(res.values, laplacian_grid_values((43, 43), 11), rtol=1e-9)
+    assert res.all_converged and res.info["verified"]

@@ -375,6 +375,12 @@ def _follow_pairs(result, history):
         active = np.flatnonzero(~done)
         if ritz.size == 0 or est.size != ritz.size or active.size == 0:
             continue
+        # A polynomial-filter run records no value in A for the Ritz pairs
+        # the filter does not amplify (NaN, estimate inf): skip them.
+        known = np.isfinite(ritz) & np.isfinite(est)
+        ritz, est = ritz[known], est[known]
+        if ritz.size == 0:
+            continue
         distance = np.abs(ritz[None, :] - values[active, None])
         slack = est[None, :] + 10.0 * result.tol * scales[active, None]
         eligible = distance <= slack

@@ -65,6 +65,13 @@ _EPS = np.finfo(np.float64).eps
 #: tol, for about twice as many reorthogonalizations (still a small share of
 #: the steps).
 PARTIAL_THRESHOLD = float(_EPS ** 0.75)
+#: The controller may raise the threshold (never above sqrt(eps), the classic
+#: semi-orthogonality level) when the tolerance leaves room: see
+#: :meth:`PartialOrthogonality.allow`.
+PARTIAL_THRESHOLD_MAX = float(np.sqrt(_EPS))
+#: Share of the smallest locking threshold that the dropped coefficients may
+#: cost the residual estimates (their error is about threshold * ||A||).
+PARTIAL_MARGIN = 0.01
 
 
 class PartialOrthogonality:
@@ -92,12 +99,27 @@ class PartialOrthogonality:
 
     def __init__(self, n, size):
         self.eps1 = 0.5 * np.sqrt(max(n, 1)) * _EPS
+        self.threshold = PARTIAL_THRESHOLD
         self.prev = np.zeros(size + 1)
         self.cur = np.zeros(size + 1)
         self.spare = np.zeros(size + 1)
         self.force = False
         self.reorthogonalizations = 0
         self.steps = 0
+
+    def allow(self, smallest_lock_threshold, norm_estimate):
+        """Set the threshold from the tolerance: the dropped coefficients must
+        cost the residual estimates at most PARTIAL_MARGIN of the smallest
+        locking threshold, within [PARTIAL_THRESHOLD, PARTIAL_THRESHOLD_MAX].
+
+        On the Heisenberg ring of 22 sites (lowest 2, tol 1e-8) that is about
+        5e-11 instead of 2e-12: fewer reorthogonalizations; on the grid
+        Laplacians (eigenvalues far below ||A||) it stays at eps^(3/4).
+        """
+        wish = PARTIAL_THRESHOLD
+        if norm_estimate > 0 and np.isfinite(smallest_lock_threshold):
+            wish = PARTIAL_MARGIN * smallest_lock_threshold / norm_estimate
+        self.threshold = max(PARTIAL_THRESHOLD, min(wish, PARTIAL_THRESHOLD_MAX))
 
     def start(self, active, first):
         """Measure the rows of the entry vector ``first`` and of ``first - 1``.
@@ -297,7 +319,7 @@ def extend_basis(apply, space, Q, offset, first, last, alpha, beta, rng, *,
         norm_estimate = max(norm_estimate, abs(a))
         if partial is not None and after > 8.0 * _EPS * max(norm_estimate, before):
             worst = partial.advance(j, alpha, beta, after, max(norm_estimate, after))
-            if partial.force or worst > PARTIAL_THRESHOLD:
+            if partial.force or worst > max(PARTIAL_THRESHOLD, partial.threshold):
                 # Reorthogonalize this vector and the next one (Simon): the
                 # estimate of the next row is built from this one's.
                 proj = orthogonalize(Q[:, offset:c + 1], w, coefficients=coef[:j + 1],

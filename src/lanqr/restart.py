@@ -322,6 +322,7 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
     verification = {"rounds": 0, "copies_found": 0, "steps": 0}
     last_est = np.zeros(0)
     last_theta = np.zeros(0)
+    last_raw = np.zeros(0)
     exhausted = False
 
     def threshold(theta):
@@ -362,6 +363,9 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
         state["certified"] = False
         offset = L
         if partial is not None:
+            if len(last_theta):
+                nw_now = max(k - L, 1) if state["phase"] == "main" else 1
+                partial.allow(float(np.min(threshold(last_raw[:nw_now]))), state["anorm"])
             partial.start(Q[:, offset:], first)
         steps = extend_basis(counted_apply, space, Q, offset, first, m - L, alpha, beta, rng,
                              norm_estimate=state["anorm"], after_step=after_step,
@@ -375,7 +379,8 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
         est = np.abs(beta[j - 1] * S[-1, :])
         order = np.argsort(wanted_key(theta, selector), kind="stable")
         thr = threshold(theta)
-        last_theta, last_est = report(theta[order], est[order])
+        last_raw = theta[order]
+        last_theta, last_est = report(last_raw, est[order])
         history.append({"ritz": np.array(last_theta), "estimates": np.array(last_est),
                         "matvecs": applied[0],
                         "locked": L, "phase": state["phase"]})
