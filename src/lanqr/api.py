@@ -57,6 +57,12 @@ POLYNOMIAL_FILTER = ("auto", "on", "off")
 # The Heisenberg rings (lowest 2 and 4) converge within 3 cycles and never
 # switch.
 FILTER_AFTER_CYCLES = 6
+# Degree shares (lanqr.polyfilter.filter_degree): products per outer step
+# relative to the basis work, for a basis that fits the caches and for one
+# that does not (beyond FILTER_LARGE_BASIS_BYTES).
+FILTER_SHARE = 1.5
+FILTER_SHARE_LARGE = 4.0
+FILTER_LARGE_BASIS_BYTES = 64 * 2**20
 # The filter's value at the last wanted Ritz value is kept at least this
 # (cut placement in _filtered_phase).
 MIN_AMPLIFICATION = 2.0
@@ -74,7 +80,13 @@ def _filtered_phase(op, space, first, k, selector, tol, basis, max_restarts, rng
     y_vals = first["active_values"]
     need = k - X.shape[1]
     nnz_per_row = op.matrix.nnz / n if hasattr(op.matrix, "nnz") else n
-    degree = filter_degree(basis, nnz_per_row)
+    # A basis beyond the caches makes every outer step stream it from memory:
+    # spread it over more products there (2-D Laplacian 1000x1000, lowest 6,
+    # basis 34 of 8 MB vectors: degree 11 gave an overhead ratio of 1.51,
+    # see FILTER_SHARE_LARGE).
+    large = (basis + 1) * n * 8 > FILTER_LARGE_BASIS_BYTES
+    degree = filter_degree(basis, nnz_per_row,
+                           share=FILTER_SHARE_LARGE if large else FILTER_SHARE)
     # The cut: the Ritz value just beyond the wanted ones.  A Ritz value bounds
     # the eigenvalue of its rank from the unwanted side, so every wanted
     # eigenvalue lies on the amplified side.  A cut further out amplifies the
