@@ -118,17 +118,23 @@ cdef inline Py_ssize_t _nnz_split(const index_t* indptr, Py_ssize_t n_rows,
 # CSR times one vector
 # ----------------------------------------------------------------------------
 
+cdef inline double _row_sum(const index_t* indptr, const index_t* indices,
+                            const double* data, const double* x,
+                            Py_ssize_t i) noexcept nogil:
+    # Same order as SciPy's csr_matvec: a sequential sum from zero.
+    cdef Py_ssize_t jj
+    cdef double s = 0.0
+    for jj in range(indptr[i], indptr[i + 1]):
+        s = s + data[jj] * x[indices[jj]]
+    return s
+
+
 cdef void _csr_rows(const index_t* indptr, const index_t* indices,
                     const double* data, const double* x, double* y,
                     Py_ssize_t r0, Py_ssize_t r1) noexcept nogil:
-    cdef Py_ssize_t i, jj
-    cdef double s
+    cdef Py_ssize_t i
     for i in range(r0, r1):
-        # Same order as SciPy's csr_matvec: a sequential sum from zero.
-        s = 0.0
-        for jj in range(indptr[i], indptr[i + 1]):
-            s = s + data[jj] * x[indices[jj]]
-        y[i] = s
+        y[i] = _row_sum(indptr, indices, data, x, i)
 
 
 cdef double _csr_rows_dot(const index_t* indptr, const index_t* indices,
@@ -136,12 +142,10 @@ cdef double _csr_rows_dot(const index_t* indptr, const index_t* indices,
                           Py_ssize_t r0, Py_ssize_t r1) noexcept nogil:
     # x[i] and y[i] are touched in order while the row is done, so the inner
     # product needs no separate pass over x and y.
-    cdef Py_ssize_t i, jj
+    cdef Py_ssize_t i
     cdef double s, acc = 0.0
     for i in range(r0, r1):
-        s = 0.0
-        for jj in range(indptr[i], indptr[i + 1]):
-            s = s + data[jj] * x[indices[jj]]
+        s = _row_sum(indptr, indices, data, x, i)
         y[i] = s
         acc = acc + x[i] * s
     return acc
@@ -238,12 +242,10 @@ cdef void _cheb_rows(const index_t* indptr, const index_t* indices,
     # y[i] <- sigma (A x - shift x)[i] - tau y[i]: the old y[i] is read once
     # and overwritten in the same row, so the three-term recurrence of a
     # Chebyshev polynomial costs one pass (the product's) instead of three.
-    cdef Py_ssize_t i, jj
+    cdef Py_ssize_t i
     cdef double s
     for i in range(r0, r1):
-        s = 0.0
-        for jj in range(indptr[i], indptr[i + 1]):
-            s = s + data[jj] * x[indices[jj]]
+        s = _row_sum(indptr, indices, data, x, i)
         if tau == 0.0:
             y[i] = sigma * (s - shift * x[i])
         else:

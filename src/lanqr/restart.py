@@ -41,8 +41,7 @@ import numpy as np
 import scipy.linalg
 
 from lanqr.lanczos import (REORTHOGONALIZATION, PartialOrthogonality, extend_basis,
-                           reorthogonalize,
-                           random_orthogonal_direction)
+                           random_orthogonal_direction, reorthogonalize)
 from lanqr.tridiagonal import tridiag_eigen
 from lanqr.vecops import rotate_basis
 
@@ -244,7 +243,8 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
     Returns
     -------
     dict
-        ``values``, ``vectors`` (the best ``k`` in wanted order), ``estimates``,
+        ``budget_exhausted`` (False here; see ``product_budget`` for the
+        other shape), ``values``, ``vectors`` (the best ``k`` in wanted order), ``estimates``,
         ``converged``, ``restarts``, ``history``, ``norm_estimate``,
         ``products`` (the operator applied to ``vectors``),
         ``verification`` (statistics of the verification round),
