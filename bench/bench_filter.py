@@ -2,7 +2,7 @@
 
 For each case lanqr.lowest runs with the filter off, with the defaults, and
 with the switch point (``FILTER_AFTER_CYCLES``) and the degree share
-(``filter_degree(share=...)``) varied one at a time; every run reports wall
+(``FILTER_SHARE``, see ``filter_degree``) varied one at a time; every run reports wall
 time (median of repeats), operator applications, the largest explicitly
 computed relative residual and, where a closed form exists, the largest
 error against it (reference-values.md §4).  The constants in
@@ -25,7 +25,6 @@ import numpy as np
 
 import lanqr
 import lanqr.api as api
-import lanqr.polyfilter as polyfilter
 from lanqr.problems import heisenberg_ring, laplacian_grid, laplacian_grid_values
 
 CASES = {
@@ -59,7 +58,7 @@ def main(argv=None):
     print(f"# lanqr {lanqr.__version__}, OMP_NUM_THREADS={os.environ.get('OMP_NUM_THREADS')}, "
           f"repeats {args.repeats}, tol 1e-8, seed 0", flush=True)
     default_cycles = api.FILTER_AFTER_CYCLES
-    default_degree = polyfilter.filter_degree
+    default_share = api.FILTER_SHARE
     for name in args.case or ["lap2d150", "lap3d30", "heis16"]:
         build, k, exact_fn = CASES[name]
         A = build()
@@ -75,13 +74,13 @@ def main(argv=None):
             if label == "filter off":
                 options = {"polynomial_filter": "off"}
             api.FILTER_AFTER_CYCLES = cycles if cycles is not None else default_cycles
-            api.filter_degree = (default_degree if share is None else
-                                 (lambda b, r, s=share: default_degree(b, r, share=s)))
+            # Cases here have a basis within the caches: FILTER_SHARE applies.
+            api.FILTER_SHARE = default_share if share is None else share
             t, mv, res, err, degree = run(A, k, exact, args.repeats, **options)
             print(f"  {label:32s} {t:8.3f} {mv:8d} {degree!s:>6s} {res:8.1e} {err:8.1e}",
                   flush=True)
         api.FILTER_AFTER_CYCLES = default_cycles
-        api.filter_degree = default_degree
+        api.FILTER_SHARE = default_share
     return 0
 
 
