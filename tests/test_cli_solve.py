@@ -279,3 +279,25 @@ def test_plot_of_a_shift_invert_run(files, tmp_path):
                    "--shift", "0", "--plot", png)
     assert proc.returncode == 0, proc.stderr
     assert png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+
+
+@pytest.mark.parametrize("setting", ["on", "off"])
+def test_polynomial_filter_flag(files, setting):
+    # The 30 x 30 grid's lowest 6, closed form with multiplicities
+    # (reference-values.md §4), with the filter forced on or kept off.
+    from lanqr.problems import laplacian_grid_values
+
+    proc = run_cli("solve", files["paths"]["grid"], "-k", 6, "--polynomial-filter", setting, "--json")
+    assert proc.returncode == 0, proc.stderr
+    report = json.loads(proc.stdout)
+    np.testing.assert_allclose(report["results"]["values"], laplacian_grid_values((30, 30), 6),
+                               rtol=1e-8)
+    assert ("Chebyshev filter" in report["results"]["method"]) == (setting == "on")
+    assert report["options"]["polynomial_filter"] == setting
+
+
+def test_polynomial_filter_with_a_mass_matrix_is_an_input_error(files):
+    proc = run_cli("solve", files["paths"]["drum_K"], "--mass", files["paths"]["drum_M"],
+                   "--polynomial-filter", "on")
+    assert proc.returncode == 2
+    assert "standard problems only" in proc.stderr and "Traceback" not in proc.stderr

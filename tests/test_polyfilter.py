@@ -222,3 +222,22 @@ def test_cut_lies_beyond_locked_values_when_copies_were_missed():
     assert "polynomial_filter" in res.info
     np.testing.assert_allclose(res.values, laplacian_grid_values((43, 43), 11), rtol=1e-9)
     assert res.all_converged and res.info["verified"]
+
+
+def test_filtered_history_counts_products_of_a():
+    # The history and the callback report operator applications of A (each
+    # filter application counts its degree), Ritz values in A.
+    A = laplacian_grid((40, 40))
+    seen = []
+    res = lanqr.lowest(A, 6, seed=3, polynomial_filter="on", callback=seen.append)
+    pf = res.info["polynomial_filter"]
+    counts = [h["matvecs"] for h in res.history]
+    assert counts == sorted(counts) and counts[-1] <= res.matvecs
+    assert [s["matvecs"] for s in seen] == sorted(s["matvecs"] for s in seen)
+    filtered = [h for h in res.history if h.get("filtered")]
+    assert filtered and filtered[0]["matvecs"] > pf["switched_after"]
+    # Ritz values the filter amplifies lie below the cut, reported in A.
+    ritz = filtered[-1]["ritz"]
+    known = ritz[np.isfinite(ritz)]
+    assert known.size and np.all(known < pf["damped"][0])
+    assert "Chebyshev filter" in res.method

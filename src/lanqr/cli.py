@@ -491,7 +491,10 @@ def _run_solver(A, M, args, k, progress):
             lower, upper = args.between
             return _call(lanqr.between, A, lower, upper, callback=progress, **common)
         func = lanqr.highest if args.highest else lanqr.lowest
-        return _call(func, A, k, callback=progress, shift=args.shift, **common)
+        extra = {}
+        if args.polynomial_filter is not None:
+            extra["polynomial_filter"] = args.polynomial_filter
+        return _call(func, A, k, callback=progress, shift=args.shift, **extra, **common)
     except ValueError as exc:
         message = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
         if isinstance(exc, _uncertified_errors()):
@@ -572,7 +575,8 @@ def _cmd_solve(args):
               else "lowest")
     inputs = {"matrix": stiffness.describe(), "mass": None if mass is None else mass.describe()}
     options = {"k": k, "wanted": wanted, "tol": args.tol, "seed": args.seed, "shift": args.shift,
-               "max_restarts": args.max_restarts, "certify": args.certify, "frequencies": args.frequencies}
+               "max_restarts": args.max_restarts, "certify": args.certify, "frequencies": args.frequencies,
+               "polynomial_filter": args.polynomial_filter or "auto"}
     report = _report("solve", inputs, options, _result_dict(result, frequencies),
                      caution=mass is not None)
     incomplete = (not np.all(result.converged)) or (
@@ -865,6 +869,10 @@ def build_parser():
     solve.add_argument("--seed", type=int, default=0, metavar="S", help="seed of the start vector (default 0)")
     solve.add_argument("--max-restarts", type=int, default=None, metavar="N",
                        help="stop after N restarts and report what converged (default: the solver's own limit)")
+    solve.add_argument("--polynomial-filter", choices=("auto", "on", "off"), default=None,
+                       help="lowest/highest without --mass or --shift: go on with Lanczos on a "
+                            "Chebyshev polynomial of the matrix when plain Lanczos converges slowly "
+                            "(auto, the default), right after the first cycle (on), or never (off)")
     solve.add_argument("--out", metavar="DIR",
                        help="write eigenpairs.csv, eigenvectors.npy and report.json into DIR")
     solve.add_argument("--json", action="store_true", help="print the JSON report instead of the table")
