@@ -6,7 +6,8 @@ with the switch point (``FILTER_AFTER_CYCLES``) and the degree share
 time (median of repeats), operator applications, the largest explicitly
 computed relative residual and, where a closed form exists, the largest
 error against it (reference-values.md §4).  The constants in
-``lanqr/api.py`` and ``lanqr/polyfilter.py`` quote these numbers.
+``lanqr/api.py``, ``lanqr/filtered.py`` and ``lanqr/polyfilter.py`` quote these
+numbers.
 
 Usage::
 
@@ -25,6 +26,7 @@ import numpy as np
 
 import lanqr
 import lanqr.api as api
+import lanqr.filtered as filtered
 from lanqr.problems import heisenberg_ring, laplacian_grid, laplacian_grid_values
 
 CASES = {
@@ -58,7 +60,7 @@ def main(argv=None):
     print(f"# lanqr {lanqr.__version__}, OMP_NUM_THREADS={os.environ.get('OMP_NUM_THREADS')}, "
           f"repeats {args.repeats}, tol 1e-8, seed 0", flush=True)
     default_cycles = api.FILTER_AFTER_CYCLES
-    default_share = api.FILTER_SHARE
+    default_share = filtered.FILTER_SHARE
     for name in args.case or ["lap2d150", "lap3d30", "heis16"]:
         build, k, exact_fn = CASES[name]
         A = build()
@@ -75,12 +77,12 @@ def main(argv=None):
                 options = {"polynomial_filter": "off"}
             api.FILTER_AFTER_CYCLES = cycles if cycles is not None else default_cycles
             # Cases here have a basis within the caches: FILTER_SHARE applies.
-            api.FILTER_SHARE = default_share if share is None else share
+            filtered.FILTER_SHARE = default_share if share is None else share
             t, mv, res, err, degree = run(A, k, exact, args.repeats, **options)
             print(f"  {label:32s} {t:8.3f} {mv:8d} {degree!s:>6s} {res:8.1e} {err:8.1e}",
                   flush=True)
         api.FILTER_AFTER_CYCLES = default_cycles
-        api.FILTER_SHARE = default_share
+        filtered.FILTER_SHARE = default_share
     return 0
 
 
