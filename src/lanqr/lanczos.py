@@ -55,6 +55,10 @@ REORTHOGONALIZATION = ("full", "partial")
 DGKS_ETA = 1.0 / np.sqrt(2.0)
 
 _EPS = np.finfo(np.float64).eps
+# Norms from a plain sum of squares are exact to rounding only between these
+# (squares stay normal and finite, with room for a sum of 1e8 terms).
+_SAFE_NORM_LOW = 1e-140
+_SAFE_NORM_HIGH = 1e140
 #: Partial reorthogonalization acts when Simon's estimate exceeds this.  The
 #: classic choice is sqrt(eps); but the coefficients a reorthogonalization
 #: removes (of the size of the estimate) are dropped from the tridiagonal
@@ -304,6 +308,10 @@ def extend_basis(apply, space, Q, offset, first, last, alpha, beta, rng, *,
         b = float(beta[j - 1]) if prev is not None else 0.0
         # One pass over memory: w -= a q + b q_prev, and ||w|| from the same pass.
         after = recurrence_update(w, q, prev, a, b, n_threads=n_threads)
+        if not (_SAFE_NORM_LOW < after < _SAFE_NORM_HIGH):
+            # The fused pass sums plain squares: for a matrix scaled near
+            # 1e+-160 they overflow or go subnormal.  dnrm2 scales as it goes.
+            after = float(dnrm2(w))
         before = after
         if partial is None:
             proj = orthogonalize(Q[:, :c + 1], w, coefficients=coef[:c + 1], max_passes=3)

@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import numpy as np
 import scipy.sparse as sp
+from scipy.linalg.blas import dnrm2
 
 from lanqr.vecops import CsrProduct, csr_asymmetry, resolve_threads
 
@@ -168,7 +169,7 @@ def _sparse_operator(A, n_threads=None):
         # Entry-wise difference of the scaled matrix and its transpose,
         # compiled, without forming the transpose: O(nnz log(row length)).
         asym = csr_asymmetry(A)
-        size = np.linalg.norm(data / scale)
+        size = float(dnrm2(data)) / scale  # overflow-safe, no scaled copy of the values
         if asym > SYMMETRY_RTOL * size:
             raise ValueError(
                 f"the sparse matrix is not symmetric: ||A - A^T||_F / ||A||_F = {asym / size:.3g}")
