@@ -87,3 +87,16 @@ def timed_child(conn, solve, side, A, k, tol, memory):
     except Exception as exc:  # report, do not hang
         conn.send(("error", repr(exc)))
     conn.close()
+
+
+def ratio_cells(ours, theirs, *, time_width, time_digits, mem_width, missing):
+    """``time  matvecs  memory`` ratios of two measured sides for a summary row.
+
+    ``ours`` / ``theirs`` are dicts with ``time``, ``matvecs`` and ``mem``;
+    when either is missing the row shows ``missing`` in the time column.
+    """
+    if ours and theirs:
+        return (f"{ours['time'] / theirs['time']:{time_width}.{time_digits}f} "
+                f"{ours['matvecs'] / theirs['matvecs']:7.2f} "
+                f"{ours['mem'] / max(theirs['mem'], 1e-9):{mem_width}.2f}")
+    return f"{missing:>{time_width}s} {'':7s} {'':{mem_width}s}"

@@ -29,8 +29,8 @@ import scipy
 import scipy.sparse.linalg as spla
 
 import lanqr
-from _harness import (Counting, max_error, relative_residuals, run_capped, timed_child,
-                      zero_multiplicity_values)
+from _harness import (Counting, max_error, ratio_cells, relative_residuals, run_capped,
+                      timed_child, zero_multiplicity_values)
 from lanqr.problems import (heisenberg_ring, laplacian_grid, laplacian_grid_values,
                             random_geometric_graph)
 
@@ -173,12 +173,8 @@ def main(argv=None):
         ours = row.get("lanqr")
         cells = []
         for other in ("eigsh-tol", "eigsh-default"):
-            o = row.get(other)
-            if ours and o:
-                cells.append(f"{ours['time'] / o['time']:9.2f} {ours['matvecs'] / o['matvecs']:7.2f} "
-                             f"{ours['mem'] / max(o['mem'], 1e-9):8.2f}")
-            else:
-                cells.append(f"{'dnf/na':>9s} {'':7s} {'':8s}")
+            cells.append(ratio_cells(ours, row.get(other), time_width=9, time_digits=2,
+                                     mem_width=8, missing="dnf/na"))
         errs = " ".join(f"{row[s]['err']:9.1e}" if row.get(s) else f"{'dnf':>9s}"
                         for s in ("lanqr", "eigsh-tol", "eigsh-default"))
         ress = " ".join(f"{row[s]['res']:9.1e}" if row.get(s) else f"{'dnf':>9s}"

@@ -49,8 +49,8 @@ import scipy
 import scipy.sparse.linalg as spla
 
 import lanqr
-from _harness import (Counting, max_error, relative_residuals, run_capped, timed_child,
-                      zero_multiplicity_values)
+from _harness import (Counting, max_error, ratio_cells, relative_residuals, run_capped,
+                      timed_child, zero_multiplicity_values)
 from lanqr.api import default_basis
 from lanqr.problems import (heisenberg_ring, laplacian_grid, laplacian_grid_values,
                             random_geometric_graph)
@@ -244,14 +244,10 @@ def summary(table):
         ours = row.get("lanqr")
         cells = []
         for other in ("eigsh", "eigsh-ncv"):
-            o = row.get(other)
-            if ours and o:
-                cells.append(f"{ours['time'] / o['time']:8.3f} {ours['matvecs'] / o['matvecs']:7.2f} "
-                             f"{ours['mem'] / max(o['mem'], 1e-9):7.2f}")
-            elif ours and other in row and o is None:
-                cells.append(f"{'<(dnf)':>8s} {'':7s} {'':7s}")
-            else:
-                cells.append(f"{'n/a':>8s} {'':7s} {'':7s}")
+            # A side that ran but did not finish: lanqr is below the cap's ratio.
+            unfinished = ours and other in row and row[other] is None
+            cells.append(ratio_cells(ours, row.get(other), time_width=8, time_digits=3,
+                                     mem_width=7, missing="<(dnf)" if unfinished else "n/a"))
         res = f"{ours['res']:9.1e} {ours['err']:9.1e}" if ours else f"{'dnf':>9s} {'':9s}"
         print(f"{row['case']:20s} {row['n']:8d} {row['k']:3d} | {cells[0]} | {cells[1]} | {res}")
 

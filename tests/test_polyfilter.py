@@ -245,3 +245,16 @@ def test_filtered_history_counts_products_of_a():
     known = ritz[np.isfinite(ritz)]
     assert known.size and np.all(known < pf["damped"][0])
     assert "Chebyshev filter" in res.method
+
+
+def test_without_a_usable_filter_the_plain_run_goes_on(monkeypatch):
+    # When no filter can be placed, the solver continues plain Lanczos with
+    # the pairs already locked; the answer is the closed form (reference-values §4).
+    import lanqr.api
+
+    monkeypatch.setattr(lanqr.api, "continue_filtered", lambda *a, **kw: None)
+    A = laplacian_grid((40, 40))
+    res = lanqr.lowest(A, 8, seed=0, polynomial_filter="on")
+    assert "polynomial_filter" not in res.info
+    np.testing.assert_allclose(res.values, laplacian_grid_values((40, 40), 8), rtol=1e-8)
+    assert res.all_converged and res.info["verified"]

@@ -111,13 +111,17 @@ def _solve(A, k, selector, tol, basis, max_restarts, seed, start, callback,
                                         max_restarts=max_restarts, rng=rng, callback=callback)
                 if out is None:
                     # No usable filter (the cut reached the spectrum bound):
-                    # go on without one, from the best Ritz vector.
+                    # go on without one, keeping the locked pairs and the
+                    # restarts already spent, from the wanted Ritz vectors.
                     out = thick_restart_lanczos(
                         op.apply, space, n, k, selector, tol=tol, basis=basis,
-                        max_restarts=max_restarts, rng=rng,
+                        max_restarts=max(max_restarts - first["restarts"], 0), rng=rng,
                         start=first["active_start"], callback=callback,
                         apply_block=op.apply_block, apply_dot=op.apply_dot,
-                        n_threads=op.n_threads, reorthogonalization=reorthogonalization)
+                        n_threads=op.n_threads, reorthogonalization=reorthogonalization,
+                        initial_locked=(first["locked_vectors"], first["locked_values"]))
+                    out["restarts"] += first["restarts"]
+                    out["history"] = first["history"] + out["history"]
                 else:
                     pf = out["polynomial_filter"]
                     method += (f", then Lanczos on a degree-{pf['degree']} Chebyshev filter "

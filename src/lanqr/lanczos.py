@@ -337,20 +337,28 @@ def extend_basis(apply, space, Q, offset, first, last, alpha, beta, rng, *,
                 partial.reset(j)
                 partial.reorthogonalizations += 1
                 partial.force = not partial.force
-        # Breakdown: the Krylov space is (numerically) invariant.  Continue
-        # with a fresh random direction, coupling 0, so the projected matrix
-        # splits and the Ritz pairs of the invariant part are exact.
-        if after <= 8.0 * _EPS * max(norm_estimate, before):
-            beta[j] = 0.0
-            Q[:, c + 1] = random_orthogonal_direction(space, Q[:, :c + 1], rng)
-            if partial is not None:
-                partial.fresh(j)
-        else:
-            beta[j] = after
-            np.multiply(w, 1.0 / after, out=Q[:, c + 1])  # in place when w is that column
+        if _store_next(space, Q, c, j, w, before, after, norm_estimate, beta, rng) \
+                and partial is not None:
+            partial.fresh(j)
         if after_step is not None and after_step(j + 1):
             return j + 1
     return last
+
+
+def _store_next(space, Q, c, j, w, before, after, norm_estimate, beta, rng):
+    """Put the next Lanczos vector in column ``c + 1``; True on a breakdown.
+
+    Breakdown: the Krylov space is (numerically) invariant.  Continue with a
+    fresh random direction, coupling 0, so the projected matrix splits and
+    the Ritz pairs of the invariant part are exact.
+    """
+    if after <= 8.0 * _EPS * max(norm_estimate, before):
+        beta[j] = 0.0
+        Q[:, c + 1] = random_orthogonal_direction(space, Q[:, :c + 1], rng)
+        return True
+    beta[j] = after
+    np.multiply(w, 1.0 / after, out=Q[:, c + 1])  # in place when w is that column
+    return False
 
 
 def _extend_generic(apply, space, Q, offset, first, last, alpha, beta, rng,
@@ -368,12 +376,7 @@ def _extend_generic(apply, space, Q, offset, first, last, alpha, beta, rng,
         a += coeffs[c]
         alpha[j] = a
         norm_estimate = max(norm_estimate, abs(a))
-        if after <= 8.0 * _EPS * max(norm_estimate, before):
-            beta[j] = 0.0
-            Q[:, c + 1] = random_orthogonal_direction(space, Q[:, :c + 1], rng)
-        else:
-            beta[j] = after
-            np.multiply(w, 1.0 / after, out=Q[:, c + 1])  # in place when w is that column
+        _store_next(space, Q, c, j, w, before, after, norm_estimate, beta, rng)
         if after_step is not None and after_step(j + 1):
             return j + 1
     return last

@@ -168,7 +168,7 @@ def _sparse_operator(A, n_threads=None):
     if scale > 0:
         # Entry-wise difference of the scaled matrix and its transpose,
         # compiled, without forming the transpose: O(nnz log(row length)).
-        asym = csr_asymmetry(A)
+        asym = csr_asymmetry(A, scale=float(scale))
         size = float(dnrm2(data)) / scale  # overflow-safe, no scaled copy of the values
         if asym > SYMMETRY_RTOL * size:
             raise ValueError(

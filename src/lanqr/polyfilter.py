@@ -133,18 +133,21 @@ class ChebyshevFilter:
         self.spectrum = (float(spectrum[0]), float(spectrum[1]))
         self.center = 0.5 * (self.lower + self.upper)
         self.half_width = 0.5 * (self.upper - self.lower)
-        far = self.spectrum[0] if side == "lowest" else self.spectrum[1]
-        growth = self.degree * np.arccosh(max(1.0, abs(self._x(far))))
-        if growth > _MAX_LOG_GROWTH:
-            raise ValueError(f"degree {degree} would overflow on the spectrum "
-                             f"(log growth {growth:.0f} > {_MAX_LOG_GROWTH:.0f})")
+        top = self.max_degree(self.lower, self.upper, side, self.spectrum)
+        if self.degree > top:
+            raise ValueError(f"degree {degree} would overflow on the spectrum (at most {top}: "
+                             f"log growth above {_MAX_LOG_GROWTH:.0f})")
         self.sign = (-1.0) ** self.degree if side == "lowest" else 1.0
         self._apply = apply
         self._step = chebyshev_step
 
     @staticmethod
     def max_degree(lower, upper, side, spectrum):
-        """The largest degree whose values on ``spectrum`` stay below overflow."""
+        """The largest degree whose values on ``spectrum`` stay below overflow.
+
+        ``T_d`` grows like ``exp(d arccosh|x|)`` at the far end of the
+        spectrum on the wanted side; that exponent stays below 300.
+        """
         center, half = 0.5 * (lower + upper), 0.5 * (upper - lower)
         far = spectrum[0] if side == "lowest" else spectrum[1]
         x = abs((far - center) / half)

@@ -263,6 +263,11 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
         raise ValueError(f"reorthogonalization must be one of {REORTHOGONALIZATION}, "
                          f"got {reorthogonalization!r}")
     partial = PartialOrthogonality(n, m) if reorthogonalization == "partial" else None
+
+    def reorthogonalization_stats():
+        return {"strategy": reorthogonalization,
+                "steps": partial.steps if partial is not None else None,
+                "reorthogonalizations": partial.reorthogonalizations if partial is not None else None}
     worst_orthogonality = [0.0]
 
     def measure(columns):
@@ -448,11 +453,7 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
                 "history": history,
                 "norm_estimate": state["anorm"],
                 "verification": verification,
-                "reorthogonalization": {
-                    "strategy": reorthogonalization,
-                    "steps": partial.steps if partial is not None else None,
-                    "reorthogonalizations":
-                        partial.reorthogonalizations if partial is not None else None},
+                "reorthogonalization": reorthogonalization_stats(),
             }
 
         if finished or restarts >= max_restarts:
@@ -557,10 +558,7 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
         "verification": verification,
         "exhausted": exhausted,
         "verified": bool(state["phase"] == "verify" and state["certified"]),
-        "reorthogonalization": {
-            "strategy": reorthogonalization,
-            "steps": partial.steps if partial is not None else None,
-            "reorthogonalizations": partial.reorthogonalizations if partial is not None else None},
+        "reorthogonalization": reorthogonalization_stats(),
         "orthogonality": worst_orthogonality[0] if measure_orthogonality else None,
     }
 

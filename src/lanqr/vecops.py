@@ -415,7 +415,7 @@ def _column_major(V, name, writable=False):
     return V
 
 
-def csr_asymmetry(A):
+def csr_asymmetry(A, scale=None):
     """``||A - A^T||_F / max|a_ij|`` of a square CSR matrix, in O(nnz log(row length)).
 
     Parameters
@@ -423,6 +423,8 @@ def csr_asymmetry(A):
     A : scipy.sparse CSR matrix or array, float64, square
         Duplicates are summed and indices sorted in place if needed (neither
         changes the matrix it represents).
+    scale : float or None
+        ``max |a_ij|`` when the caller has it already (one pass fewer).
 
     Returns
     -------
@@ -448,7 +450,8 @@ def csr_asymmetry(A):
         A.sort_indices()
     if A.nnz == 0:
         return 0.0
-    scale = float(np.max(np.abs(A.data)))
+    if scale is None:
+        scale = float(np.max(np.abs(A.data)))
     if scale == 0.0 or not np.isfinite(scale):
         return 0.0 if scale == 0.0 else float("nan")
     indices = np.ascontiguousarray(A.indices)
@@ -530,6 +533,13 @@ class Projection(NamedTuple):
     passes: int
 
 
+def _check_dgks(eta, max_passes):
+    if not 0.0 < eta < 1.0:
+        raise ValueError(f"eta must lie in (0, 1), got {eta}")
+    if int(max_passes) < 1:
+        raise ValueError(f"max_passes must be at least 1, got {max_passes}")
+
+
 def orthogonalize(basis, w, *, coefficients=None, eta=DGKS_ETA, max_passes=2):
     """Classical Gram-Schmidt of ``w`` against the columns of ``basis``, with DGKS.
 
@@ -594,10 +604,7 @@ def orthogonalize(basis, w, *, coefficients=None, eta=DGKS_ETA, max_passes=2):
     w = _writable_vector(w, "w")
     if w.shape[0] != n:
         raise ValueError(f"w must have length {n}, got {w.shape[0]}")
-    if not 0.0 < eta < 1.0:
-        raise ValueError(f"eta must lie in (0, 1), got {eta}")
-    if int(max_passes) < 1:
-        raise ValueError(f"max_passes must be at least 1, got {max_passes}")
+    _check_dgks(eta, max_passes)
     if coefficients is None:
         coefficients = np.empty(j)
     else:
@@ -644,10 +651,7 @@ def orthogonalize_block(basis, block, *, eta=DGKS_ETA, max_passes=2):
     n, j = basis.shape
     if block.shape[0] != n:
         raise ValueError(f"block must have {n} rows, got {block.shape[0]}")
-    if not 0.0 < eta < 1.0:
-        raise ValueError(f"eta must lie in (0, 1), got {eta}")
-    if int(max_passes) < 1:
-        raise ValueError(f"max_passes must be at least 1, got {max_passes}")
+    _check_dgks(eta, max_passes)
     if np.may_share_memory(block, basis):
         raise ValueError("block must not overlap the basis")
     b = block.shape[1]
