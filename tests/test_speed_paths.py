@@ -11,6 +11,7 @@ import scipy.sparse.linalg as spla
 
 import lanqr
 import lanqr.lanczos
+import lanqr.restart
 from lanqr.operators import SymmetricOperator, as_operator
 from lanqr.problems import heisenberg_ring, laplacian_grid, laplacian_grid_values
 from lanqr.restart import thick_restart_lanczos
@@ -128,6 +129,36 @@ def test_without_reorthogonalization_orthogonality_is_lost(monkeypatch):
     A = laplacian_grid((40, 40))
     out = _run(A, 4, "partial", max_restarts=8, verify=False)
     assert out["orthogonality"] > 1e-4
+
+
+def test_first_cycle_raises_the_partial_threshold(monkeypatch):
+    # The ground state of the ring lies at |theta| ~ ||A||, so the locking
+    # threshold (tol |theta|) lets the partial threshold rise above eps^(3/4)
+    # from the first cycle on; the basis must stay semi-orthogonal (measured)
+    # and the energy right.
+    H = heisenberg_ring(14)
+    n = H.shape[0]
+
+    def run():
+        return thick_restart_lanczos(lambda x: H @ x, VectorSpace(n), n, 2, "lowest",
+                                     tol=1e-8, basis=40, max_restarts=100,
+                                     rng=np.random.default_rng(3), reorthogonalization="partial",
+                                     measure_orthogonality=True)
+    early = run()
+    monkeypatch.setattr(lanqr.restart, "EARLY_ALLOW_STEPS", 10**9)
+    late = run()
+    assert (early["reorthogonalization"]["reorthogonalizations"]
+            < late["reorthogonalization"]["reorthogonalizations"])
+    for out in (early, late):
+        assert out["orthogonality"] <= np.sqrt(EPS)
+        # reference-values.md §6: E0(14) = -6.2635495335470370226 (exact diagonalisation
+        # and Bethe ansatz).
+        assert abs(out["values"][0] - (-6.2635495335470370226)) <= 1e-8 * 6.3
+        X = out["vectors"]
+        # Returned vectors are orthonormal to rounding whatever the threshold.
+        assert np.abs(X.T @ X - np.eye(2)).max() <= 100 * EPS
+        R = H @ X - X * out["values"]
+        assert np.all(np.linalg.norm(R, axis=0) <= 1e-8 * np.abs(out["values"]))
 
 
 def test_partial_and_full_agree_on_a_clustered_spectrum():
