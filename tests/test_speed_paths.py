@@ -161,6 +161,20 @@ def test_first_cycle_raises_the_partial_threshold(monkeypatch):
         assert np.all(np.linalg.norm(R, axis=0) <= 1e-8 * np.abs(out["values"]))
 
 
+def test_loosest_partial_threshold_keeps_semi_orthogonality():
+    # tol 1e-5 at |theta| ~ ||A|| lets the threshold reach its cap, sqrt(eps):
+    # the signed estimates are tight (not 10^3 too large), so this is where
+    # a too-optimistic estimate would show.  Measured explicitly.
+    H = heisenberg_ring(14)
+    n = H.shape[0]
+    out = thick_restart_lanczos(lambda x: H @ x, VectorSpace(n), n, 4, "lowest", tol=1e-5,
+                                basis=30, max_restarts=300, rng=np.random.default_rng(0),
+                                reorthogonalization="partial", measure_orthogonality=True)
+    assert out["orthogonality"] <= np.sqrt(EPS)
+    # reference-values.md §6: E0(14) = -6.2635495335470370226.
+    assert abs(out["values"][0] - (-6.2635495335470370226)) <= 1e-5 * 6.3
+
+
 def test_partial_and_full_agree_on_a_clustered_spectrum():
     # reference-values.md §4: 22 x 22 grid (N + 1 = 23 prime), doubles in the spectrum.
     A = laplacian_grid((22, 22))

@@ -88,7 +88,9 @@ class PartialOrthogonality:
 
     needs nothing else.  Rounding enters as ``eps1 (|(alpha_k, beta_k)| +
     |(alpha_j, beta_j)|)`` with the sign of the term, ``eps1 = sqrt(n) eps / 2``
-    (Simon 1984; common practice).  The rows start from the measured inner
+    (Simon 1984; common practice).  The estimates keep their signs, so
+    terms of later steps can cancel as the true inner products do; the
+    largest |estimate| triggers a reorthogonalization.  The rows start from the measured inner
     products of the entry vector and its predecessor with the active basis,
     so a thick restart, whose kept Ritz vectors carry the orthogonality level
     of the basis they came from, starts from the truth, not from ``eps``.
@@ -138,8 +140,9 @@ class PartialOrthogonality:
         if first == 0:
             return
         rows = active[:, :first + 1].T @ active[:, first - 1:first + 1]
-        self.prev[:first + 1] = np.maximum(np.abs(rows[:, 0]), self.eps1)
-        self.cur[:first + 1] = np.maximum(np.abs(rows[:, 1]), self.eps1)
+        # Signed, like the recurrence; at least eps1 in size.
+        self.prev[:first + 1] = np.copysign(np.maximum(np.abs(rows[:, 0]), self.eps1), rows[:, 0])
+        self.cur[:first + 1] = np.copysign(np.maximum(np.abs(rows[:, 1]), self.eps1), rows[:, 1])
         self.prev[first - 1] = 1.0
         self.cur[first] = 1.0
 

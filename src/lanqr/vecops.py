@@ -465,8 +465,9 @@ def omega_advance(new, cur, prev, alpha, beta, j, beta_j, eps1, local):
     Writes row ``j + 1`` into ``new`` from rows ``j`` (``cur``) and ``j - 1``
     (``prev``) and the tridiagonal coefficients ``alpha[:j + 1]``,
     ``beta[:j]`` (``beta_j`` is the new coupling); ``eps1`` scales the
-    rounding term, ``local`` is the estimate against ``q_j``.  Returns the
-    largest estimate against columns ``0 .. j - 1``.  Called once per Lanczos
+    rounding term, ``local`` is the estimate against ``q_j``.  Estimates are
+    signed (the rounding term takes the sign of the rest).  Returns the
+    largest |estimate| against columns ``0 .. j - 1``.  Called once per Lanczos
     step by :class:`lanqr.lanczos.PartialOrthogonality`, so only the lengths
     are checked: every array is a contiguous float64 vector the caller owns.
     """
