@@ -506,6 +506,23 @@ def test_rotate_basis_matches_numpy(chunk_rows, m, k):
     np.testing.assert_array_equal(store[:, k:], untouched)
 
 
+@pytest.mark.parametrize("chunk_rows", [1, 97, 4096])
+@pytest.mark.parametrize("m, k", [(30, 10), (5, 1)])
+def test_rotate_basis_gram_matches_numpy(chunk_rows, m, k):
+    n = 1000
+    store = np.asfortranarray(np.random.default_rng(7).standard_normal((n, 34)))
+    Y = np.random.default_rng(8).standard_normal((m, k))
+    probe = np.random.default_rng(9).standard_normal(n)
+    _, gram = rotate_basis(store, Y, chunk_rows=chunk_rows, probe=probe)
+    W = store[:, :k]
+    # Reference: NumPy/BLAS inner products of the rotated columns.
+    ref = np.vstack([np.column_stack([W.T @ W[:, -1], W.T @ probe]),
+                     [probe @ W[:, -1], probe @ probe]])
+    np.testing.assert_allclose(gram, ref, rtol=0, atol=10 * n * EPS * np.abs(ref).max())
+    with pytest.raises(ValueError, match="probe"):
+        rotate_basis(store, Y, probe=probe[:-1])
+
+
 def test_rotate_basis_rejects_bad_input():
     store = np.asfortranarray(np.ones((10, 5)))
     with pytest.raises(ValueError, match="k <= m"):

@@ -40,7 +40,7 @@ from libc.string cimport memcpy
 from libc.math cimport sqrt, fabs, hypot
 from cython.parallel cimport parallel, prange
 
-from scipy.linalg.cython_blas cimport dgemv, dgemm, dnrm2
+from scipy.linalg.cython_blas cimport ddot, dgemv, dgemm, dnrm2
 
 cdef extern from *:
     """
@@ -700,18 +700,27 @@ def block_project(double[:, :] V, double[:, :] W, double[:, :] C):
               &d_one, &W[0, 0], &ldw)
 
 
-def rotate_basis(double[:, :] V, double[:, :] Y, int chunk_rows):
+def rotate_basis(double[:, :] V, double[:, :] Y, int chunk_rows,
+                 const double[::1] probe=None, double[:, ::1] gram=None):
     """V[:, :k] <- V[:, :m] Y in place, in row chunks of ``chunk_rows``.
 
     Each output row depends only on the same input row, so a chunk of rows can
     be overwritten as soon as its product is formed; the scratch is one chunk
     (chunk_rows x k) instead of a second n x k array.
+
+    With ``probe`` (length n) and ``gram`` (k + 1 x 2, zeroed by the caller):
+    ``gram[c, 0] = W[:, c] . W[:, k-1]`` and ``gram[c, 1] = W[:, c] . probe``
+    for the new columns ``W`` (c < k), ``gram[k] = (probe . W[:, k-1],
+    probe . probe)``, summed chunk by chunk while the chunk is in cache.
     """
     cdef int n = <int>V.shape[0], m = <int>Y.shape[0], k = <int>Y.shape[1]
-    cdef int ldv, ldy, rows, r0, c
+    cdef int ldv, ldy, rows, r0, c, one = 1
     cdef double d_one = 1.0, d_zero = 0.0
     cdef char* tn = b"N"
     cdef double* tmp
+    cdef bint with_gram = probe is not None and gram is not None
+    if with_gram and (probe.shape[0] != n or gram.shape[0] != k + 1 or gram.shape[1] != 2):
+        raise ValueError("probe must have n entries and gram shape (k + 1, 2)")
     if n == 0 or k == 0:
         return
     ldv = _ld(V)
@@ -728,8 +737,17 @@ def rotate_basis(double[:, :] V, double[:, :] Y, int chunk_rows):
                 rows = min(chunk_rows, n - r0)
                 dgemm(tn, tn, &rows, &k, &m, &d_one, &V[r0, 0], &ldv,
                       &Y[0, 0], &ldy, &d_zero, tmp, &rows)
+                if with_gram:
+                    for c in range(k):
+                        gram[c, 0] += ddot(&rows, tmp + <size_t>c * rows, &one,
+                                           tmp + <size_t>(k - 1) * rows, &one)
+                        gram[c, 1] += ddot(&rows, tmp + <size_t>c * rows, &one,
+                                           &probe[r0], &one)
+                    gram[k, 1] += ddot(&rows, &probe[r0], &one, &probe[r0], &one)
                 for c in range(k):
                     memcpy(&V[r0, c], tmp + <size_t>c * rows, rows * sizeof(double))
                 r0 += rows
+            if with_gram:
+                gram[k, 0] = gram[k - 1, 1]
     finally:
         PyMem_RawFree(tmp)

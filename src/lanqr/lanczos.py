@@ -127,11 +127,13 @@ class PartialOrthogonality:
             wish = PARTIAL_MARGIN * smallest_lock_threshold / norm_estimate
         self.threshold = max(PARTIAL_THRESHOLD, min(wish, PARTIAL_THRESHOLD_MAX))
 
-    def start(self, active, first):
+    def start(self, active, first, rows=None):
         """Measure the rows of the entry vector ``first`` and of ``first - 1``.
 
         ``active`` holds the active columns ``0 .. first`` (Fortran order).
-        Costs two dgemv sweeps over the active basis, once per restart.
+        Costs one sweep over the active basis, once per restart, unless
+        ``rows`` (``active[:, :first + 1].T @ active[:, first - 1:first + 1]``)
+        were measured already (:func:`lanqr.vecops.rotate_basis` with a probe).
         """
         self.prev[:] = 0.0
         self.cur[:] = 0.0
@@ -139,7 +141,8 @@ class PartialOrthogonality:
         self.cur[first] = 1.0
         if first == 0:
             return
-        rows = active[:, :first + 1].T @ active[:, first - 1:first + 1]
+        if rows is None:
+            rows = active[:, :first + 1].T @ active[:, first - 1:first + 1]
         # Signed, like the recurrence; at least eps1 in size.
         self.prev[:first + 1] = np.copysign(np.maximum(np.abs(rows[:, 0]), self.eps1), rows[:, 0])
         self.cur[:first + 1] = np.copysign(np.maximum(np.abs(rows[:, 1]), self.eps1), rows[:, 1])

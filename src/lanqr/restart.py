@@ -335,6 +335,7 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
     last_theta = np.zeros(0)
     last_raw = np.zeros(0)
     exhausted = False
+    start_rows = None  # measured by the rotation at a restart, for partial.start
 
     def threshold(theta):
         if pair_threshold is not None:
@@ -396,7 +397,8 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
             if len(last_theta):
                 nw_now = max(k - L, 1) if state["phase"] == "main" else 1
                 partial.allow(float(np.min(threshold(last_raw[:nw_now]))), state["anorm"])
-            partial.start(Q[:, offset:], first)
+            partial.start(Q[:, offset:], first, rows=start_rows)
+            start_rows = None
         steps = extend_basis(counted_apply, space, Q, offset, first, m - L, alpha, beta, rng,
                              norm_estimate=state["anorm"], after_step=after_step,
                              apply_dot=counted_apply_dot, partial=partial, n_threads=n_threads)
@@ -517,8 +519,14 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
             Zk, dk, ek, coupling = _arrow_to_tridiagonal(theta[keep], beta[j - 1] * S[-1, keep])
             Zs = np.hstack([Zs, S[:, keep] @ Zk]) if nl else S[:, keep] @ Zk
         r = Q[:, L + j].copy()
-        if Zs.shape[1]:
-            # In place, in row chunks: no second n x p array.
+        if Zs.shape[1] and partial is not None and p:
+            # In place, in row chunks: no second n x p array.  The inner
+            # products that start the orthogonality estimates of the next
+            # cycle are summed while each chunk is in cache, instead of a
+            # sweep over the kept vectors of their own.
+            _, gram = rotate_basis(Q[:, L:L + j], Zs, probe=r)
+            start_rows = gram[nl:]
+        elif Zs.shape[1]:
             rotate_basis(Q[:, L:L + j], Zs)
         if nl:
             locked_vals = np.concatenate([locked_vals, theta[lock]])

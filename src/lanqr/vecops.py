@@ -672,7 +672,7 @@ def orthogonalize_block(basis, block, *, eta=DGKS_ETA, max_passes=2):
     return Projection(total, after, norms_before, passes)
 
 
-def rotate_basis(basis, rotation, *, chunk_rows=ROTATE_CHUNK_ROWS):
+def rotate_basis(basis, rotation, *, chunk_rows=ROTATE_CHUNK_ROWS, probe=None):
     """In place ``V[:, :k] = V[:, :m] @ Y`` (Ritz vectors for a thick restart).
 
     Formed by dgemm in chunks of rows: an output row needs only the same input
@@ -688,11 +688,17 @@ def rotate_basis(basis, rotation, *, chunk_rows=ROTATE_CHUNK_ROWS):
         ``k <= m``; copied to Fortran order (it is small).
     chunk_rows : int
         Rows per dgemm call.
+    probe : ndarray, shape (n,), optional
+        Also return inner products measured while each chunk is in cache
+        (no extra pass over the basis): see Returns.
 
     Returns
     -------
     ndarray
-        ``basis`` (updated in place).
+        ``basis`` (updated in place); with ``probe``, the pair ``(basis,
+        gram)`` where ``gram`` has shape ``(k + 1, 2)``: rows ``c < k`` hold
+        ``W[:, c] . W[:, k-1]`` and ``W[:, c] . probe`` for the new columns
+        ``W``, row ``k`` holds ``probe . W[:, k-1]`` and ``probe . probe``.
 
     Raises
     ------
@@ -710,7 +716,13 @@ def rotate_basis(basis, rotation, *, chunk_rows=ROTATE_CHUNK_ROWS):
         raise ValueError(f"rotation shape {Y.shape} needs k <= m <= {p}")
     if int(chunk_rows) < 1:
         raise ValueError(f"chunk_rows must be positive, got {chunk_rows}")
-    if n == 0 or k == 0:
+    if probe is None:
+        if n and k:
+            _vecops.rotate_basis(basis[:, :m], Y, int(chunk_rows))
         return basis
-    _vecops.rotate_basis(basis[:, :m], Y, int(chunk_rows))
-    return basis
+    probe = _float_vector(probe, n, "probe")
+    if k == 0:
+        raise ValueError("probe needs at least one new column")
+    gram = np.zeros((k + 1, 2))
+    _vecops.rotate_basis(basis[:, :m], Y, int(chunk_rows), probe, gram)
+    return basis, gram
