@@ -524,7 +524,7 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
             # products that start the orthogonality estimates of the next
             # cycle are summed while each chunk is in cache, instead of a
             # sweep over the kept vectors of their own.
-            _, gram = rotate_basis(Q[:, L:L + j], Zs, probe=r)
+            gram = rotate_basis(Q[:, L:L + j], Zs, probe=r)[1]  # no view of Q kept
             start_rows = gram[nl:]
         elif Zs.shape[1]:
             rotate_basis(Q[:, L:L + j], Zs)
