@@ -31,12 +31,14 @@ Usage::
     python bench/bench_speed.py --quick                 # small sizes, a few minutes
     python bench/bench_speed.py --case lap2d150 --case heis20
     python bench/bench_speed.py --case overhead-heis22 --repeats 1
+    python bench/bench_speed.py --case lap2d150 --seeds 5   # medians over start vectors
     python bench/bench_speed.py --case product
     python bench/bench_speed.py > bench/results/speed.log 2>&1 &   # everything (long)
 """
 from __future__ import annotations
 
 import argparse
+import functools
 import os
 import platform
 import statistics
@@ -117,13 +119,13 @@ def overhead_cases(quick):
 LANQR_OPTIONS = {}
 
 
-def solve(side, A, k, tol):
+def solve(side, A, k, tol, seed=0):
     """Run one solver; return (values, vectors, operator applications)."""
     if side == "lanqr":
-        res = lanqr.lowest(A, k, tol=tol, seed=0, **LANQR_OPTIONS)
+        res = lanqr.lowest(A, k, tol=tol, seed=seed, **LANQR_OPTIONS)
         return res.values, res.vectors, res.matvecs
     op = Counting(A)
-    v0 = np.random.default_rng(0).standard_normal(A.shape[0])
+    v0 = np.random.default_rng(seed).standard_normal(A.shape[0])
     kw = {"tol": tol}
     if side == "eigsh-ncv":
         kw["ncv"] = default_basis(k)
@@ -132,12 +134,13 @@ def solve(side, A, k, tol):
     return w[order], V[:, order], op.count
 
 
-def measure_side(side, A, k, tol, repeats, cap):
+def measure_side(side, A, k, tol, repeats, cap, seed=0):
     """Median wall time over ``repeats`` untraced runs plus one traced run (memory)."""
     times, out, peak = [], None, float("nan")
+    solve_seeded = functools.partial(solve, seed=seed)
     for rep in range(repeats + 1):
         traced = rep == 0
-        msg = run_capped(timed_child, (solve, side, A, k, tol, traced), cap)
+        msg = run_capped(timed_child, (solve_seeded, side, A, k, tol, traced), cap)
         if msg[0] != "ok":
             return msg, None, peak
         if traced:
@@ -221,18 +224,35 @@ def run_solver_case(name, spec, args, sides):
         exact = exact_fn(k) if exact_fn else None
     row = {"case": name, "n": A.shape[0], "k": k, "A": A}
     for side in sides:
-        out, t, peak = measure_side(side, A, k, args.tol, args.repeats, cap)
-        if out[0] != "ok":
-            what = f"did not finish in {cap:g} s" if out[0] == "timeout" else out[1]
-            print(f"  {side:10s} {what}", flush=True)
+        per_seed = []
+        for seed in range(args.seeds):
+            out, t, peak = measure_side(side, A, k, args.tol, args.repeats, cap, seed=seed)
+            if out[0] != "ok":
+                what = f"did not finish in {cap:g} s" if out[0] == "timeout" else out[1]
+                print(f"  {side:10s} {what}" + (f" (seed {seed})" if args.seeds > 1 else ""),
+                      flush=True)
+                per_seed = None
+                break
+            _, _, vals, vecs, count, _ = out
+            res = float(np.max(relative_residuals(A, vals, vecs, args.tol, anorm)))
+            err = max_error(vals, exact, anorm)
+            per_seed.append(dict(time=t, matvecs=count, res=res, err=err, mem=peak / 2**20))
+            label = f"{side} s{seed}" if args.seeds > 1 else side
+            print(f"  {label:10s} time {t:9.3f} s  matvecs {count:6d}  max res {res:.1e}  "
+                  f"max err {err:.1e}  peak {peak / 2**20:8.1f} MiB", flush=True)
+        if per_seed is None:
             row[side] = None
             continue
-        _, _, vals, vecs, count, _ = out
-        res = float(np.max(relative_residuals(A, vals, vecs, args.tol, anorm)))
-        err = max_error(vals, exact, anorm)
-        row[side] = dict(time=t, matvecs=count, res=res, err=err, mem=peak / 2**20)
-        print(f"  {side:10s} time {t:9.3f} s  matvecs {count:6d}  max res {res:.1e}  "
-              f"max err {err:.1e}  peak {peak / 2**20:8.1f} MiB", flush=True)
+        # Several start vectors: medians of the time and the products (both
+        # sides start from the same vector for each seed), worst residual.
+        row[side] = dict(time=statistics.median(r["time"] for r in per_seed),
+                         matvecs=int(statistics.median(r["matvecs"] for r in per_seed)),
+                         res=max(r["res"] for r in per_seed),
+                         err=max(r["err"] for r in per_seed),  # nan if no exact values
+                         mem=max(r["mem"] for r in per_seed))
+        if args.seeds > 1:
+            print(f"  {side:10s} median over {args.seeds} seeds: time {row[side]['time']:.3f} s, "
+                  f"matvecs {row[side]['matvecs']}", flush=True)
     return row
 
 
@@ -295,6 +315,8 @@ def main(argv=None):
     ap.add_argument("--repeats", type=int, default=3,
                     help="timed repeats (median); one extra run traces memory")
     ap.add_argument("--tol", type=float, default=1e-8)
+    ap.add_argument("--seeds", type=int, default=1,
+                    help="start vectors 0..S-1 for both sides; the summary takes medians")
     ap.add_argument("--cap", type=float, default=None, help="seconds per solve (overrides)")
     ap.add_argument("--sides", default="lanqr,eigsh,eigsh-ncv")
     ap.add_argument("--reorthogonalization", choices=("full", "partial"), default=None,
