@@ -375,7 +375,8 @@ def thick_restart_lanczos(apply, space, n, k, selector, *, tol, basis, max_resta
         order = np.argsort(wanted_key(theta, selector), kind="stable")
         thr = threshold(theta)
         if early_allow and not len(last_theta) and j >= EARLY_ALLOW_STEPS:
-            partial.allow(float(interlaced_threshold(theta[order[nw - 1]])), state["anorm"])
+            partial.allow(float(interlaced_threshold(theta[order[max(nw, 1) - 1]])),
+                          state["anorm"])
         if state["phase"] == "main":
             w = order[:nw]
             return bool(np.all(est[w] <= thr[w]))
