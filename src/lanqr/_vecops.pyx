@@ -404,6 +404,21 @@ def csr_matmat_f(const index_t[::1] indptr, const index_t[::1] indices,
 # Symmetry of a CSR matrix
 # ----------------------------------------------------------------------------
 
+cdef inline Py_ssize_t _mirror_position(const index_t* indptr, const index_t* indices,
+                                        Py_ssize_t i, Py_ssize_t j) noexcept nogil:
+    # Position of entry (j, i) in row j's sorted indices (binary search), or -1.
+    cdef Py_ssize_t lo = indptr[j], hi = indptr[j + 1], end = indptr[j + 1], mid
+    while lo < hi:
+        mid = lo + (hi - lo) // 2
+        if indices[mid] < i:
+            lo = mid + 1
+        else:
+            hi = mid
+    if lo < end and indices[lo] == i:
+        return lo
+    return -1
+
+
 cdef double _csr_asymmetry(const index_t* indptr, const index_t* indices,
                            const double* data, Py_ssize_t n_rows,
                            double inv_scale) noexcept nogil:
@@ -411,7 +426,7 @@ cdef double _csr_asymmetry(const index_t* indptr, const index_t* indices,
     # sorted indices.  A pair stored on both sides is met twice, once from
     # each side; a pair stored on one side only is met once and counted
     # twice, so the sum is exactly ||A - A^T||_F^2 (of the scaled matrix).
-    cdef Py_ssize_t i, jj, j, lo, hi, mid, end
+    cdef Py_ssize_t i, jj, j, mirror
     cdef double a, d, acc = 0.0
     for i in range(n_rows):
         for jj in range(indptr[i], indptr[i + 1]):
@@ -419,17 +434,9 @@ cdef double _csr_asymmetry(const index_t* indptr, const index_t* indices,
             if j == i:
                 continue
             a = data[jj] * inv_scale
-            lo = indptr[j]
-            end = indptr[j + 1]
-            hi = end
-            while lo < hi:
-                mid = lo + (hi - lo) // 2
-                if indices[mid] < i:
-                    lo = mid + 1
-                else:
-                    hi = mid
-            if lo < end and indices[lo] == i:
-                d = a - data[lo] * inv_scale
+            mirror = _mirror_position(indptr, indices, i, j)
+            if mirror >= 0:
+                d = a - data[mirror] * inv_scale
                 acc = acc + d * d
             else:
                 acc = acc + 2.0 * a * a
@@ -444,7 +451,7 @@ cdef double _csr_asymmetry_upper(const index_t* indptr, const index_t* indices,
     # When every lower entry was some upper entry's mirror (matched ==
     # lower), the sum is exactly ||A - A^T||_F^2; otherwise the caller falls
     # back to the full scan.
-    cdef Py_ssize_t i, jj, j, lo, hi, mid, end
+    cdef Py_ssize_t i, jj, j, mirror
     cdef double a, d, acc = 0.0
     matched[0] = 0
     lower[0] = 0
@@ -457,17 +464,9 @@ cdef double _csr_asymmetry_upper(const index_t* indptr, const index_t* indices,
             if j == i:
                 continue
             a = data[jj] * inv_scale
-            lo = indptr[j]
-            end = indptr[j + 1]
-            hi = end
-            while lo < hi:
-                mid = lo + (hi - lo) // 2
-                if indices[mid] < i:
-                    lo = mid + 1
-                else:
-                    hi = mid
-            if lo < end and indices[lo] == i:
-                d = a - data[lo] * inv_scale
+            mirror = _mirror_position(indptr, indices, i, j)
+            if mirror >= 0:
+                d = a - data[mirror] * inv_scale
                 acc = acc + 2.0 * d * d
                 matched[0] += 1
             else:
